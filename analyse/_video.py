@@ -1,0 +1,204 @@
+"""Video: presentation timestamps from demuxed packets, and streamed decoding with PyAV.
+
+Private helper of :mod:`analyse.frames`. Times come from the packets' presentation
+timestamps (pts) without decoding pixels: packets arrive in decoding order, so their
+pts are sorted into presentation order. ``pts * time_base`` is exact, keeps a
+non-zero start and follows a variable frame rate. Only the first frame is decoded
+while probing, for its display-matrix rotation.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from dataclasses import dataclass
+from fractions import Fraction
+from pathlib import Path
+
+import av
+import numpy as np
+
+from analyse.errors import InputError
+
+__all__ = ["VideoProbe", "probe_video", "decode_video", "chroma_subsampling"]
+
+#: Chroma subsampling named from (horizontal, vertical) luma/chroma size ratios.
+SUBSAMPLING_NAMES = {(1, 1): "4:4:4", (2, 1): "4:2:2", (2, 2): "4:2:0", (4, 1): "4:1:1"}
+#: Demuxer flag: generate missing pts (AVI and raw streams may lack them) (FFmpeg docs).
+OPEN_OPTIONS = {"fflags": "+genpts"}
+
+
+@dataclass(frozen=True)
+class VideoProbe:
+    """What a video says about its frames, read without decoding them (but one).
+
+    ``width``/``height`` are after the rotation is applied; ``frame_pts`` are sorted.
+    """
+
+    path: Path
+    frame_pts: tuple[int, ...]
+    time_base: Fraction
+    width: int
+    height: int
+    bit_depth: int
+    pix_fmt: str
+    chroma_subsampling: str | None
+    rotation_deg: int
+    creation_time: str | None
+
+
+def probe_video(path: Path, max_pixels: int) -> VideoProbe:
+    """Read a video's frame timestamps, size, pixel format and rotation.
+
+    Parameters
+    ----------
+    path : Path
+        The video file (any container FFmpeg reads).
+    max_pixels : int
+        Largest accepted frame width x height [pixels].
+
+    Returns
+    -------
+    VideoProbe
+    """
+    try:
+        container = av.open(str(path), options=OPEN_OPTIONS)
+    except (av.FFmpegError, OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot open the video ({exc})", path) from None
+    with container:
+        if not container.streams.video:
+            raise InputError("the file has no video stream", path)
+        stream = container.streams.video[0]
+        ctx = stream.codec_context
+        width, height, pix_fmt = ctx.width, ctx.height, ctx.pix_fmt
+        if not width or not height or pix_fmt is None:
+            raise InputError("the video stream has no frame size or pixel format", path)
+        if width * height > max_pixels:
+            raise InputError(f"frames are {width} x {height} pixels, more than the limit of "
+                             f"{max_pixels}", path)
+        fmt = av.VideoFormat(pix_fmt, width, height)
+        if len([c for c in fmt.components if not c.is_alpha]) < 3:
+            raise InputError(f"pixel format {pix_fmt!r} is greyscale; the analysis needs "
+                             "colour", path)
+        frame_pts, rotation = _scan(container, stream, path)
+        if stream.time_base is None:
+            raise InputError("the video stream has no time base", path)
+        creation = container.metadata.get("creation_time") or stream.metadata.get(
+            "creation_time")
+    if rotation % 90:
+        raise InputError(f"display rotation of {rotation} deg is not a multiple of 90", path)
+    if rotation % 180:
+        width, height = height, width
+    bits = max(c.bits for c in fmt.components)
+    return VideoProbe(
+        path=path, frame_pts=frame_pts, time_base=Fraction(stream.time_base),
+        width=width, height=height, bit_depth=8 if bits <= 8 else 16, pix_fmt=pix_fmt,
+        chroma_subsampling=chroma_subsampling(fmt), rotation_deg=rotation,
+        creation_time=creation,
+    )
+
+
+def chroma_subsampling(fmt: av.VideoFormat) -> str | None:
+    """``"4:2:0"`` etc. for a YUV pixel format, None for RGB or unknown ratios."""
+    if fmt.is_rgb:
+        return None
+    luma = fmt.components[0]
+    chroma = [c for c in fmt.components if c.is_chroma]
+    if not chroma or not chroma[0].width or not chroma[0].height:
+        return None
+    ratio = (round(luma.width / chroma[0].width), round(luma.height / chroma[0].height))
+    return SUBSAMPLING_NAMES.get(ratio)
+
+
+def decode_video(probe: VideoProbe, roi: tuple[int, int, int, int] | None
+                 ) -> Iterator[tuple[int, np.ndarray | None, str | None]]:
+    """Decode frames one at a time in presentation order.
+
+    Parameters
+    ----------
+    probe : VideoProbe
+        From :func:`probe_video`.
+    roi : (y0, y1, x0, x1) or None
+        Crop in display coordinates (after rotation) [pixels].
+
+    Yields
+    ------
+    position : int
+        Index into ``probe.frame_pts``; every position is yielded once, in order.
+    rgb : (H, W, 3) ndarray of uint8 or uint16, or None
+        The frame as stored (not linearised), rotated for display and cropped; None
+        where the frame could not be decoded.
+    problem : str or None
+        Why ``rgb`` is None.
+    """
+    position_of = {pts: k for k, pts in enumerate(probe.frame_pts)}
+    out_format = "rgb24" if probe.bit_depth == 8 else "rgb48le"
+    k_rot = (probe.rotation_deg // 90) % 4
+    next_k = 0
+    problem = "frame missing from the decoder's output"
+    with av.open(str(probe.path), options=OPEN_OPTIONS) as container:
+        stream = container.streams.video[0]
+        stream.thread_type = "AUTO"
+        for frame, error in _frames(container, stream):
+            if error is not None:
+                problem = f"decoder error ({error})"
+                continue
+            k = position_of.get(frame.pts)
+            if k is None or k < next_k:
+                continue
+            for missing in range(next_k, k):
+                yield missing, None, problem
+            next_k = k + 1
+            if frame.is_corrupt:
+                yield k, None, "frame decoded with errors (corrupt data)"
+                continue
+            rgb = np.rot90(frame.to_ndarray(format=out_format), k_rot)
+            if roi is not None:
+                rgb = rgb[roi[0]:roi[1], roi[2]:roi[3]]
+            yield k, rgb, None
+    for missing in range(next_k, len(probe.frame_pts)):
+        yield missing, None, problem
+
+
+def _frames(container: av.container.InputContainer, stream: av.VideoStream
+            ) -> Iterator[tuple[av.VideoFrame | None, str | None]]:
+    """Decoded frames, or the decoder's error for a packet, continuing after errors."""
+    for packet in container.demux(stream):
+        try:
+            frames = stream.decode(packet)
+        except av.FFmpegError as exc:
+            yield None, str(exc)
+            continue
+        for frame in frames:
+            yield frame, None
+
+
+def _scan(container: av.container.InputContainer, stream: av.VideoStream, path: Path
+          ) -> tuple[tuple[int, ...], int]:
+    """Sorted pts of every shown frame, and the display rotation (counter-clockwise deg)."""
+    pts: list[int] = []
+    rotation: int | None = None
+    try:
+        for packet in container.demux(stream):
+            if packet.size == 0 or packet.is_discard:
+                continue  # end-of-stream flush, or outside the edit list
+            if packet.pts is None:
+                raise InputError("a video packet has no presentation timestamp", path)
+            pts.append(packet.pts)
+            if rotation is None:
+                frames = stream.decode(packet)
+                if frames:
+                    rotation = frames[0].rotation
+        if rotation is None:
+            frames = stream.decode(None)
+            rotation = frames[0].rotation if frames else 0
+    except av.FFmpegError as exc:
+        raise InputError(f"cannot read the video's packets ({exc})", path) from None
+    if not pts:
+        raise InputError("the video has no frames", path)
+    if rotation == 0 and "rotate" in stream.metadata:  # legacy tag, degrees clockwise
+        try:
+            rotation = -int(float(stream.metadata["rotate"]))
+        except ValueError:
+            rotation = 0
+    rotation = ((rotation + 180) % 360) - 180
+    return tuple(sorted(pts)), rotation

@@ -22,7 +22,8 @@ from PIL import Image, JpegImagePlugin, UnidentifiedImageError
 
 from analyse.errors import InputError
 
-__all__ = ["StillHeader", "probe_still", "exif_time_utc", "read_still"]
+__all__ = ["StillHeader", "probe_still", "exif_time_utc", "times_from_exif", "still_notes",
+           "read_still", "orient"]
 
 EXIF_IFD = 0x8769  # pointer to the Exif sub-IFD (EXIF 2.32, CIPA DC-008-2019)
 TAG_ORIENTATION = 0x0112  # in the top-level IFD (EXIF 2.32)
@@ -165,6 +166,39 @@ def exif_time_utc(header: StillHeader, clock_utc_offset_h: float | None) -> floa
         raise InputError(f"EXIF SubSecTimeOriginal {subsec!r} is not decimal digits", path)
     fraction_s = float(f"0.{subsec}") if subsec else 0.0
     return (local - timedelta(seconds=offset_s)).timestamp() + fraction_s
+
+
+def times_from_exif(headers: list[StillHeader], clock_utc_offset_h: float | None,
+                     notes: list[str]) -> list[float]:
+    """EXIF times of every still, with notes on what was assumed."""
+    for h in headers:
+        if h.datetime_original is None:
+            raise InputError("no frame times: there is no frames.csv (file,time_utc) and this "
+                             "image has no EXIF DateTimeOriginal", h.path)
+    times = [exif_time_utc(h, clock_utc_offset_h) for h in headers]
+    if any(h.offset_original is None for h in headers):
+        notes.append(f"EXIF times without OffsetTimeOriginal taken as camera clock = UTC "
+                     f"{clock_utc_offset_h:+g} h ([camera] clock_utc_offset_h)")
+    if any(h.subsec_original is None for h in headers):
+        notes.append("some EXIF times have no SubSecTimeOriginal: those are whole seconds")
+    return times
+
+
+def still_notes(headers: list[StillHeader]) -> list[str]:
+    """Notes on orientation, chroma subsampling and declared gamma of the stills."""
+    notes = []
+    turned = sorted({h.orientation for h in headers} - {1})
+    if turned:
+        notes.append(f"EXIF Orientation {', '.join(map(str, turned))} applied on reading")
+    samplings = sorted({h.chroma_subsampling for h in headers if h.chroma_subsampling})
+    if "4:2:0" in samplings or "4:2:2" in samplings:
+        notes.append(f"JPEG chroma subsampling {'/'.join(samplings)}: colour is stored at "
+                     "reduced resolution, so colour edges are interpolated")
+    gammas = sorted({h.png_gamma for h in headers if h.png_gamma is not None
+                     and abs(h.png_gamma - 1 / 2.2) > 0.01})
+    if gammas:
+        notes.append(f"PNG gAMA chunk declares gamma {gammas[0]:g}; decoded as sRGB anyway")
+    return notes
 
 
 def read_still(header: StillHeader,

@@ -185,12 +185,9 @@ def _scan(container: av.container.InputContainer, stream: av.VideoStream, path: 
                 raise InputError("a video packet has no presentation timestamp", path)
             pts.append(packet.pts)
             if rotation is None:
-                frames = stream.decode(packet)
-                if frames:
-                    rotation = frames[0].rotation
+                rotation = _first_rotation(stream, packet)
         if rotation is None:
-            frames = stream.decode(None)
-            rotation = frames[0].rotation if frames else 0
+            rotation = _first_rotation(stream, None) or 0
     except av.FFmpegError as exc:
         raise InputError(f"cannot read the video's packets ({exc})", path) from None
     if not pts:
@@ -202,3 +199,12 @@ def _scan(container: av.container.InputContainer, stream: av.VideoStream, path: 
             rotation = 0
     rotation = ((rotation + 180) % 360) - 180
     return tuple(sorted(pts)), rotation
+
+
+def _first_rotation(stream: av.VideoStream, packet: av.Packet | None) -> int | None:
+    """Display rotation of the first frame the decoder returns, None while it has none."""
+    try:
+        frames = stream.decode(packet)
+    except av.FFmpegError:
+        return None  # a damaged frame: try the next; iter_frames reports it
+    return frames[0].rotation if frames else None

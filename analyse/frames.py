@@ -46,7 +46,7 @@ VIDEO_SUFFIXES = (".mp4", ".mov", ".mkv", ".avi")
 FRAMES_CSV = "frames.csv"
 DEFAULT_MAX_PIXELS = 60_000_000  # about a 60 MP still; larger is refused as an image bomb
 
-# IEC 61966-2-1:1999 (sRGB), section 5.2, decoding and encoding transfer functions:
+# IEC 61966-2-1:1999 (sRGB), decoding and encoding transfer functions:
 SRGB_DECODE_KNEE = 0.04045  # encoded value where the linear segment ends [-]
 SRGB_ENCODE_KNEE = 0.0031308  # linear value where the linear segment ends [-]
 SRGB_SLOPE = 12.92  # slope of the linear segment [-]
@@ -111,7 +111,7 @@ def srgb_to_linear(x: np.ndarray | float) -> np.ndarray:
     References
     ----------
     IEC 61966-2-1:1999, Multimedia systems and equipment - Colour measurement and
-    management - Part 2-1: Default RGB colour space - sRGB, section 5.2.
+    management - Part 2-1: Default RGB colour space - sRGB (decoding formula).
     """
     x = np.asarray(x)
     if not np.issubdtype(x.dtype, np.floating):
@@ -135,7 +135,7 @@ def linear_to_srgb(x: np.ndarray | float) -> np.ndarray:
 
     References
     ----------
-    IEC 61966-2-1:1999, section 5.3 (encoding).
+    IEC 61966-2-1:1999 (encoding formula).
     """
     x = np.asarray(x)
     if not np.issubdtype(x.dtype, np.floating):
@@ -320,49 +320,16 @@ def _open_stills(folder: Path, stills: list[Path], csv_times: dict[str, float] |
         times = _times_from_csv(csv_times, [p.name for p in stills], folder / FRAMES_CSV)
         time_source = "frames.csv"
     else:
-        times = _times_from_exif(headers, clock_utc_offset_h, notes)
+        times = _stills.times_from_exif(headers, clock_utc_offset_h, notes)
         time_source = "exif"
     infos = tuple(FrameInfo(index=i, t_unix_s=t, source=h.path.name,
                             exposure_s=h.exposure_s, iso=h.iso)
                   for i, (t, h) in enumerate(zip(times, headers)))
-    notes.extend(_still_notes(headers))
+    notes.extend(_stills.still_notes(headers))
     return FrameSet(folder=folder, kind="stills", files=tuple(stills), infos=infos,
                     time_source=time_source, width=first.width, height=first.height,
                     bit_depth=first.bit_depth, chroma_subsampling=first.chroma_subsampling,
                     notes=tuple(notes))
-
-
-def _times_from_exif(headers: list[_stills.StillHeader], clock_utc_offset_h: float | None,
-                     notes: list[str]) -> list[float]:
-    """EXIF times of every still, with notes on what was assumed."""
-    for h in headers:
-        if h.datetime_original is None:
-            raise InputError("no frame times: there is no frames.csv (file,time_utc) and this "
-                             "image has no EXIF DateTimeOriginal", h.path)
-    times = [_stills.exif_time_utc(h, clock_utc_offset_h) for h in headers]
-    if any(h.offset_original is None for h in headers):
-        notes.append(f"EXIF times without OffsetTimeOriginal taken as camera clock = UTC "
-                     f"{clock_utc_offset_h:+g} h ([camera] clock_utc_offset_h)")
-    if any(h.subsec_original is None for h in headers):
-        notes.append("some EXIF times have no SubSecTimeOriginal: those are whole seconds")
-    return times
-
-
-def _still_notes(headers: list[_stills.StillHeader]) -> list[str]:
-    """Notes on orientation, chroma subsampling and declared gamma of the stills."""
-    notes = []
-    turned = sorted({h.orientation for h in headers} - {1})
-    if turned:
-        notes.append(f"EXIF Orientation {', '.join(map(str, turned))} applied on reading")
-    samplings = sorted({h.chroma_subsampling for h in headers if h.chroma_subsampling})
-    if "4:2:0" in samplings or "4:2:2" in samplings:
-        notes.append(f"JPEG chroma subsampling {'/'.join(samplings)}: colour is stored at "
-                     "reduced resolution, so colour edges are interpolated")
-    gammas = sorted({h.png_gamma for h in headers if h.png_gamma is not None
-                     and abs(h.png_gamma - 1 / 2.2) > 0.01})
-    if gammas:
-        notes.append(f"PNG gAMA chunk declares gamma {gammas[0]:g}; decoded as sRGB anyway")
-    return notes
 
 
 def _open_video(folder: Path, video: Path, csv_times: dict[str, float] | None,

@@ -271,7 +271,7 @@ def format_utc(t_unix_s: float, digits: int = 3) -> str:
 
 
 def read_observation(
-    path: str | Path, *, require: Iterable[str] = ("site", "air", "camera", "model")
+    path: str | Path, *, require: Iterable[str] = ("site",)
 ) -> Observation:
     """Read and validate ``observation.toml``.
 

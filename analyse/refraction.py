@@ -320,7 +320,10 @@ def trace_rays(medium: Medium, apparent_elevation_deg, wavelength_index, *,
             out_alt[idx[out]] = 90.0 - np.degrees(zeta_vac + phi[out])
             fate[idx[out]] = ESCAPED
             air[idx[out]] = col[out] / medium.column
-            bouguer[idx[out]] = np.abs(n_top * r[out] * np.sin(zeta[out]) / c0[idx[out]] - 1.0)
+            c_end = n_top * r[out] * np.sin(zeta[out])
+            c_start = c0[idx[out]]
+            scale = np.maximum(np.abs(c_start), medium.earth_radius_m * 1e-9)  # zenith rays: c = 0
+            bouguer[idx[out]] = np.abs(c_end - c_start) / scale
         fate[idx[sea]] = SEA
         done = sea | out | lost
         if np.any(done):

@@ -76,6 +76,7 @@ STANDARD_LATITUDE_DEG = 45.0  # deg; Bodhaine et al. 1999 standard conditions
 RAYLEIGH_VALID_NM = (200.0, 1200.0)  # nm; range where eq. 30 is used here (NaN outside)
 CSV_WAVELENGTH_RANGE_NM = (200.0, 1200.0)  # nm; accepted in a band CSV (catches um input)
 CSV_MIN_ROWS = 5  # rows; fewer cannot describe a band
+MIN_NODE_WAVELENGTH_NM = 300.0  # nm; lower limit of Ciddor 1996, used by the ray tracer
 CSV_CHANNELS = ("r", "g", "b")
 _CSV_REFINE = 16  # sub-steps per tabulated interval when discretising a CSV curve
 
@@ -212,6 +213,12 @@ def bands_from_csv(
     bands = {}
     for name in CSV_CHANNELS:
         nodes, weights = _gauss_rule_for_curve(lam, curves[name], int(n_wavelengths), path, name)
+        if nodes[0] < MIN_NODE_WAVELENGTH_NM:
+            raise InputError(
+                f"column {name} responds so far into the ultraviolet that a band node falls at "
+                f"{nodes[0]:.0f} nm, below the refractivity model's {MIN_NODE_WAVELENGTH_NM:g} nm",
+                path,
+            )
         text = (
             f"measured curve from {path.name} ({lam.size} rows, {lam[0]:g}-{lam[-1]:g} nm), "
             f"{n_wavelengths}-node Gauss quadrature"
@@ -395,8 +402,9 @@ def rayleigh_optical_depth_bodhaine1999(
     quoted in the paper) at the mass-weighted height of the column,
     ``z_c = 0.73737 z + 5517.56 m``; ``g_std`` is the same at 45 deg and z = 0. The
     mean molecular weight is kept at its 360 ppm CO2 value (100 ppm more CO2 raises tau
-    by 7e-5 relative in the paper's full method). The fit agrees with the paper's full calculation to
-    6e-5 over 250-850 nm and 5e-4 at 1000 nm (tests/published); NaN outside 200-1200 nm.
+    by 7e-5 relative in the paper's full method). The fit agrees with the paper's full
+    calculation to 6e-5 over 250-850 nm and 5e-4 at 1000 nm (tests/published); NaN is
+    returned outside 200-1200 nm.
 
     Parameters
     ----------

@@ -83,7 +83,8 @@ def test_weights_are_sensitivity_times_spectrum_times_transmission():
     band = default_bands()["r"]
     lam = band.wavelength_nm
     expected = band.sensitivity * solar_spectrum_relative(lam) * transmission(lam, 5.0)
-    np.testing.assert_allclose(band_weights(band, airmass=5.0), expected / expected.sum(), rtol=1e-12)
+    got = band_weights(band, airmass=5.0)
+    np.testing.assert_allclose(got, expected / expected.sum(), rtol=1e-12)
 
 
 def test_weights_survive_huge_airmass_and_propagate_nan():
@@ -146,7 +147,8 @@ def test_solar_spectrum_is_a_photon_planck_curve_at_5772K():
 
 def test_rayleigh_scales_with_pressure_and_gravity():
     base = rayleigh_optical_depth_bodhaine1999(550.0)
-    assert rayleigh_optical_depth_bodhaine1999(550.0, pressure_hPa=506.625) == pytest.approx(base / 2)
+    half = rayleigh_optical_depth_bodhaine1999(550.0, pressure_hPa=506.625)
+    assert half == pytest.approx(base / 2)
     # weaker gravity at the equator and at height: more air per hPa, larger tau
     assert rayleigh_optical_depth_bodhaine1999(550.0, latitude_deg=0.0) > base
     assert rayleigh_optical_depth_bodhaine1999(550.0, altitude_m=2000.0) > base
@@ -216,7 +218,8 @@ def test_csv_round_trip_gaussians(tmp_path):
         np.testing.assert_allclose(band.wavelength_nm, defaults[name].wavelength_nm, atol=0.02)
         # at the horizon (airmass 38) measured 0.0018 nm apart; tolerance 0.005 nm
         horizon = effective_wavelength_nm(band, airmass=38.0)
-        assert horizon == pytest.approx(effective_wavelength_nm(defaults[name], airmass=38.0), abs=5e-3)
+        expected = effective_wavelength_nm(defaults[name], airmass=38.0)
+        assert horizon == pytest.approx(expected, abs=5e-3)
 
 
 def test_csv_column_order_free_and_node_count(tmp_path):
@@ -236,7 +239,8 @@ def test_csv_skewed_curve_keeps_its_moments(tmp_path):
     x = (lam - 400.0) / 20.0
     curve = x**3 * np.exp(-x)
     flat = np.ones_like(lam)
-    lines = ["wavelength_nm,r,g,b"] + [f"{a},{c:.12g},{f},{f}" for a, c, f in zip(lam, curve, flat)]
+    rows = [f"{a},{c:.12g},{f},{f}" for a, c, f in zip(lam, curve, flat)]
+    lines = ["wavelength_nm,r,g,b", *rows]
     path = tmp_path / "gamma.csv"
     path.write_text("\n".join(lines))
     band = bands_from_csv(path)["r"]
@@ -253,27 +257,45 @@ def test_csv_skewed_curve_keeps_its_moments(tmp_path):
     assert var == pytest.approx(400.0**2 / 12.0, rel=1e-6)
 
 
+HEADER = "wavelength_nm,r,g,b\n"
+GOOD_ROWS = ["400,1,1,1", "450,1,1,1", "500,1,1,1", "550,1,1,1", "600,1,1,1"]
+
+
+def _table(*replace: tuple[int, str], header: str = HEADER) -> str:
+    """A valid 5-row table with some rows replaced (index into GOOD_ROWS)."""
+    rows = list(GOOD_ROWS)
+    for index, row in replace:
+        rows[index] = row
+    return header + "\n".join(rows) + "\n"
+
+
+# case: (file text, expected message); file line numbers count the header as line 1
 BAD_CSVS = {
-    "negative": ("wavelength_nm,r,g,b\n400,1,1,1\n450,1,1,1\n500,1,-0.5,1\n550,1,1,1\n600,1,1,1\n",
-                 r"negative value -0\.5 in column g line 4"),
-    "unsorted": ("wavelength_nm,r,g,b\n400,1,1,1\n450,1,1,1\n440,1,1,1\n550,1,1,1\n600,1,1,1\n",
-                 r"not strictly increasing: 440 nm on line 4"),
-    "missing_column": ("wavelength_nm,r,b\n400,1,1\n450,1,1\n500,1,1\n550,1,1\n600,1,1\n",
-                       r"missing column 'g'"),
+    "negative": (_table((2, "500,1,-0.5,1")), r"negative value -0\.5 in column g line 4"),
+    "unsorted": (_table((2, "440,1,1,1")), r"not strictly increasing: 440 nm on line 4"),
+    "missing_column": (
+        "wavelength_nm,r,b\n" + "\n".join(r[: r.rindex(",")] for r in GOOD_ROWS),
+        r"missing column 'g'",
+    ),
     "empty": ("", r"empty"),
     "comments_only": ("# nothing\n\n", r"empty"),
-    "non_numeric": ("wavelength_nm,r,g,b\n400,1,1,1\n450,1,x,1\n500,1,1,1\n550,1,1,1\n600,1,1,1\n",
-                    r"column g line 3: 'x' is not a number"),
-    "too_few_rows": ("wavelength_nm,r,g,b\n400,1,1,1\n450,1,1,1\n", r"only 2 data rows"),
-    "micrometres": ("wavelength_nm,r,g,b\n0.40,1,1,1\n0.45,1,1,1\n0.50,1,1,1\n0.55,1,1,1\n0.6,1,1,1\n",
-                    r"nanometres"),
-    "zero_channel": ("wavelength_nm,r,g,b\n400,1,1,0\n450,1,1,0\n500,1,1,0\n550,1,1,0\n600,1,1,0\n",
-                     r"column b is zero everywhere"),
-    "ragged": ("wavelength_nm,r,g,b\n400,1,1,1\n450,1,1\n500,1,1,1\n550,1,1,1\n600,1,1,1\n",
-               r"line 3 has 3 fields"),
-    "unknown_column": ("wavelength_nm,r,g,b,ir\n400,1,1,1,1\n", r"unknown or repeated column 'ir'"),
-    "nan": ("wavelength_nm,r,g,b\n400,1,1,1\n450,nan,1,1\n500,1,1,1\n550,1,1,1\n600,1,1,1\n",
-            r"not finite"),
+    "non_numeric": (_table((1, "450,1,x,1")), r"column g line 3: 'x' is not a number"),
+    "too_few_rows": (HEADER + "400,1,1,1\n450,1,1,1\n", r"only 2 data rows"),
+    "micrometres": (
+        _table(*((i, f"0.{4 + i},1,1,1") for i in range(5))), r"must be in nanometres"
+    ),
+    "zero_channel": (
+        _table(*((i, r[: r.rindex(",")] + ",0") for i, r in enumerate(GOOD_ROWS))),
+        r"column b is zero everywhere",
+    ),
+    "ragged": (_table((1, "450,1,1")), r"line 3 has 3 fields"),
+    "unknown_column": ("wavelength_nm,r,g,b,ir\n400,1,1,1,1\n", r"unknown or repeated column"),
+    "nan": (_table((1, "450,nan,1,1")), r"not finite"),
+    "ultraviolet": (
+        HEADER + "\n".join(f"{w},{int(w > 350)},{int(w > 350)},{int(w < 320)}"
+                            for w in range(250, 451, 10)),
+        r"column b .* below the refractivity model's 300 nm",
+    ),
 }
 
 

@@ -73,6 +73,13 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print JSON (FOLDER-FORMAT.md keys)")
     _add_common(p, writes=False)
 
+    p = sub.add_parser("report", help="measure a sunset folder and infer the lapse rate",
+                       description="Register every frame to the sea horizon, measure the "
+                       "solar upper limb in each colour channel, infer the near-surface lapse "
+                       "rate, and write report.html, result.json and frames.ecsv.")
+    p.add_argument("folder", type=Path, metavar="FOLDER")
+    _add_common(p, writes=True)
+
     p = sub.add_parser("simulate", help="render a synthetic sunset folder from a scenario",
                        description="Render the frames a camera would record of a sunset "
                        "through a model atmosphere (format: docs/scenario.md).")
@@ -209,6 +216,40 @@ def _cmd_refraction(args: argparse.Namespace) -> int:
     return 0
 
 
+def _sunset_folder(folder: Path) -> Path:
+    if not folder.exists():
+        raise InputError("folder does not exist", folder)
+    if not folder.is_dir():
+        raise InputError("not a folder (give the sunset folder, not a file in it)", folder)
+    return folder
+
+
+def _cmd_report(args: argparse.Namespace) -> int:
+    from analyse.observation import read_observation
+    from analyse.outfolder import atomic_folder, check_output, default_output
+    from analyse.pipeline import measure_folder
+    from analyse.results import result_document, write_frames_ecsv, write_result_json
+
+    folder = _sunset_folder(args.folder)
+    toml = folder / "observation.toml"
+    if not toml.is_file():
+        raise InputError("observation.toml is missing: report needs the site and air "
+                         "(FOLDER-FORMAT.md)", folder)
+    obs = read_observation(toml)
+    out = args.out if args.out is not None else default_output(folder, "report")
+    out = check_output(out, input_folder=folder, force=args.force)
+    measurement = measure_folder(folder, obs, progress=not args.quiet)
+    doc = result_document(measurement, None, layer_top_m=obs.model.layer_top_m)
+    with atomic_folder(out, force=args.force) as tmp:
+        write_result_json(doc, tmp / "result.json")
+        write_frames_ecsv(measurement, tmp / "frames.ecsv")
+    ob = doc["observables"]
+    green = ob["green_duration_s"]
+    print(f"{folder}: green segment "
+          f"{'not measured' if green is None else f'{green:.2f} s'}; results in {out}")
+    return 0
+
+
 def _cmd_simulate(args: argparse.Namespace) -> int:
     from analyse.writers import run_simulate
 
@@ -221,6 +262,7 @@ COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {
     "predict": _cmd_predict,
     "refraction": _cmd_refraction,
     "simulate": _cmd_simulate,
+    "report": _cmd_report,
 }
 
 

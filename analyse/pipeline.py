@@ -1,0 +1,294 @@
+"""The measuring run: frames -> registered horizon -> per-channel limbs -> observables.
+
+This is the one place that loops over frames. Each frame is read, its sea horizon found
+(with the previous frame's line as a prior), the Sun located, and the limbs measured on
+a crop around the Sun, so that the cost per frame is set by the Sun's size, not the
+frame's. Frames stream through: memory stays flat in the recording's length (only
+small crops of the final seconds are kept, for the report's strip).
+"""
+
+from __future__ import annotations
+
+import collections
+import dataclasses
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from analyse import horizon as hz
+from analyse import limb as lb
+from analyse.errors import InputError
+from analyse.frames import FrameSet, iter_frames, open_frames
+from analyse.measure import (
+    CHANNELS,
+    DiscGeometry,
+    FrameTable,
+    Observables,
+    disc_geometry,
+    sequence_observables,
+)
+from analyse.observation import Observation
+from analyse.sun import sun_track
+
+__all__ = ["Measurement", "StripFrame", "measure_folder", "read_calibration"]
+
+_STRIP_KEEP = 48  # crops of the final visible frames kept for the report
+_CROP_HALF_WIDTH_PX = 90
+_CROP_ABOVE_PX = 48
+_CROP_BELOW_PX = 16
+
+
+@dataclass(frozen=True)
+class StripFrame:
+    """A small registered crop around the limb apex (linear RGB) and its limb heights."""
+
+    index: int
+    t_unix_s: float
+    crop: np.ndarray  # (h, w, 3) float16, linear
+    horizon_row_px: float  # row of the horizon line in the crop at its centre column
+    apex_height_px: dict[str, float]
+
+
+@dataclass(frozen=True)
+class Measurement:
+    """Everything measured on a sunset folder, before inference."""
+
+    frameset: FrameSet
+    table: FrameTable
+    observables: Observables
+    sun_altitude_deg: np.ndarray  # (N,) true altitude of the Sun's centre at the frame times
+    semidiameter_arcsec: float
+    strip: tuple[StripFrame, ...]
+    calibration: dict | None
+    notes: tuple[str, ...] = field(default=())
+
+
+def read_calibration(path: Path | None) -> dict | None:
+    """Read calibration.json (written by ``calibrate``); None when no path is given."""
+    if path is None:
+        return None
+    try:
+        data = json.loads(Path(path).read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read the calibration: {exc.strerror or exc}", path) from None
+    except json.JSONDecodeError as exc:
+        raise InputError(f"not valid JSON (line {exc.lineno}): {exc.msg}", path) from None
+    if not isinstance(data, dict):
+        raise InputError("a calibration must be a JSON object", path)
+    scale = data.get("plate_scale_arcsec_per_px")
+    if scale is not None and not (isinstance(scale, (int, float)) and scale > 0):
+        raise InputError("plate_scale_arcsec_per_px must be a positive number", path)
+    offsets = data.get("channel_offset_px", {})
+    if not isinstance(offsets, dict) or any(
+            not (isinstance(v, list) and len(v) == 2 and all(isinstance(x, (int, float)) for x in v))
+            for v in offsets.values()):
+        raise InputError('channel_offset_px must map "r"/"b" to [dx, dy] pairs of numbers', path)
+    return data
+
+
+def _shift_line(line: hz.HorizonLine, x0: float, y0: float) -> hz.HorizonLine:
+    return dataclasses.replace(line, x_ref_px=line.x_ref_px - x0, row_px=line.row_px - y0)
+
+
+def _crop_box(sun: lb.SunLocation, line: hz.HorizonLine, shape) -> tuple[int, int, int, int]:
+    """Rows and columns around the Sun: its width plus margins, from above the disc to
+    below the horizon."""
+    h, w = shape[:2]
+    r = max(sun.radius_px, 8.0)
+    x0 = int(max(0, np.floor(sun.x_px - 1.25 * r - 24)))
+    x1 = int(min(w, np.ceil(sun.x_px + 1.25 * r + 24)))
+    y_line = float(line.row_at(np.array([sun.x_px]))[0]) if line.found else sun.y_px
+    y0 = int(max(0, np.floor(min(sun.y_px, y_line) - 2.3 * r - 24)))
+    y1 = int(min(h, np.ceil(y_line + 0.6 * r + 24)))
+    return y0, y1, x0, x1
+
+
+class _Columns:
+    """Accumulates the per-frame table row by row."""
+
+    def __init__(self) -> None:
+        self.rows: list[dict] = []
+
+    def add(self, info, line, limbs, flags) -> None:
+        row = {"t": info.t_unix_s, "source": info.source, "flags": tuple(flags),
+               "found": bool(line is not None and line.found)}
+        for k in ("row_px", "row_err_px", "roll_deg", "roll_err_deg"):
+            row[k] = getattr(line, k) if row["found"] else np.nan
+        for c in CHANNELS:
+            lm = limbs.get(c) if limbs else None
+            for k in ("apex_height_px", "apex_height_err_px", "width_px", "height_px",
+                      "flux", "flux_err", "sky_level"):
+                row[f"{k}:{c}"] = getattr(lm, k) if lm is not None else np.nan
+            row[f"visible:{c}"] = bool(lm.visible) if lm is not None else False
+            row[f"saturated:{c}"] = bool(lm.saturated) if lm is not None else False
+        self.rows.append(row)
+
+    def table(self) -> FrameTable:
+        col = lambda k, dt=float: np.array([r[k] for r in self.rows], dtype=dt)  # noqa: E731
+        per = lambda k, dt=float: {c: col(f"{k}:{c}", dt) for c in CHANNELS}  # noqa: E731
+        return FrameTable(
+            col("t"), col("found", bool), col("row_px"), col("row_err_px"), col("roll_deg"),
+            col("roll_err_deg"), per("apex_height_px"), per("apex_height_err_px"),
+            per("width_px"), per("height_px"), per("visible", bool), per("flux"),
+            per("flux_err"), per("sky_level"), per("saturated", bool),
+            tuple(r["flags"] for r in self.rows), tuple(r["source"] for r in self.rows))
+
+
+def _measure_frame(img, prior, sun_prior):
+    """Horizon, Sun and limbs of one frame; returns (line, sun, limbs, flags, box)."""
+    flags: list[str] = []
+    sun = lb.locate_sun(img, prior if prior is not None and prior.found else None)
+    if not sun.found and sun_prior is not None:
+        sun = sun_prior
+    exclude = None
+    if sun.found:
+        exclude = (sun.x_px - 1.3 * sun.radius_px - 10, sun.x_px + 1.3 * sun.radius_px + 10)
+    line = hz.find_horizon(img, exclude_x=exclude, prior=prior)
+    if not line.found and prior is not None:
+        line = hz.find_horizon(img, exclude_x=exclude)
+    if not line.found:
+        flags.append("no-horizon")
+        return line, sun, {}, flags, None
+    if not sun.found:
+        flags.append("no-sun")
+        return line, sun, {}, flags, None
+    y0, y1, x0, x1 = _crop_box(sun, line, img.shape)
+    crop = img[y0:y1, x0:x1]
+    sun_c = dataclasses.replace(sun, x_px=sun.x_px - x0, y_px=sun.y_px - y0)
+    limbs = lb.measure_limbs(crop, _shift_line(line, x0, y0), sun_c)
+    for c, lm in limbs.items():
+        flags.extend(f"{c}:{f}" for f in lm.flags)
+    return line, sun, limbs, flags, (y0, y1, x0, x1)
+
+
+def _strip_crop(img, line, limbs, info) -> StripFrame | None:
+    """A small crop centred on the green apex column, the horizon near its bottom."""
+    g = limbs.get("g")
+    if g is None or not np.isfinite(g.apex_x_px):
+        return None
+    h, w = img.shape[:2]
+    xc = int(round(g.apex_x_px))
+    yc = float(line.row_at(np.array([float(xc)]))[0])
+    y0, y1 = int(round(yc)) - _CROP_ABOVE_PX, int(round(yc)) + _CROP_BELOW_PX
+    x0, x1 = xc - _CROP_HALF_WIDTH_PX, xc + _CROP_HALF_WIDTH_PX
+    if y0 < 0 or x0 < 0 or y1 > h or x1 > w:
+        return None
+    apex = {c: float(lm.apex_height_px) for c, lm in limbs.items()}
+    return StripFrame(info.index, info.t_unix_s, img[y0:y1, x0:x1].astype(np.float16),
+                      yc - y0, apex)
+
+
+def _progress(total: int, enabled: bool, desc: str):
+    from tqdm import tqdm
+
+    return tqdm(total=total, disable=not enabled, desc=desc, unit="frame", leave=False)
+
+
+def measure_folder(folder: Path, obs: Observation, *, progress: bool = True) -> Measurement:
+    """Read, register and measure every frame of a sunset folder.
+
+    Parameters
+    ----------
+    folder : Path
+        The sunset folder (FOLDER-FORMAT.md).
+    obs : Observation
+        Its observation.toml.
+    progress : bool
+        Show a progress bar on the terminal.
+    """
+    fs = open_frames(folder, video_start_utc=obs.camera.video_start_utc,
+                     clock_utc_offset_h=obs.camera.clock_utc_offset_h)
+    cols = _Columns()
+    strip: collections.deque = collections.deque(maxlen=_STRIP_KEEP)
+    after_dark = 0
+    colour_dy: dict[str, list[float]] = {"r": [], "b": []}
+    prior = sun_prior = None
+    with _progress(len(fs.infos), progress, "measuring frames") as bar:
+        for info, img in iter_frames(fs, on_error="skip"):
+            bar.update(1)
+            if img is None:
+                cols.add(info, None, {}, ["unreadable"])
+                continue
+            line, sun, limbs, flags, box = _measure_frame(img, prior, sun_prior)
+            cols.add(info, line, limbs, flags)
+            if line.found:
+                prior = line
+                offs = hz.horizon_colour_offsets(img, line, exclude_x=(
+                    sun.x_px - 1.3 * sun.radius_px - 10, sun.x_px + 1.3 * sun.radius_px + 10)
+                    if sun.found else None)
+                for c in colour_dy:
+                    if np.isfinite(offs.get(c, np.nan)):
+                        colour_dy[c].append(float(offs[c]))
+            if sun.found:
+                sun_prior = sun
+            visible = any(lm.visible for lm in limbs.values())
+            after_dark = 0 if visible else after_dark + 1
+            if box is not None and after_dark <= 3:
+                shifted = {c: dataclasses.replace(lm, apex_x_px=lm.apex_x_px + box[2])
+                           for c, lm in limbs.items()}
+                s = _strip_crop(img, line, shifted, info)
+                if s is not None:
+                    strip.append(s)
+    table = cols.table()
+    return _observables(fs, obs, table, colour_dy, tuple(strip))
+
+
+def _plate_scale(obs: Observation, calib: dict | None, geometry: DiscGeometry,
+                 sd_arcsec: float) -> tuple[float, str, list[str]]:
+    notes: list[str] = []
+    measured = sd_arcsec / geometry.rx_px if np.isfinite(geometry.rx_px) else np.nan
+    if obs.camera.plate_scale_arcsec_per_px is not None:
+        scale, source = obs.camera.plate_scale_arcsec_per_px, "observation.toml"
+    elif calib is not None and calib.get("plate_scale_arcsec_per_px"):
+        scale, source = float(calib["plate_scale_arcsec_per_px"]), "calibration"
+    elif np.isfinite(measured):
+        scale, source = float(measured), "disc width and ephemeris semidiameter"
+    else:
+        raise InputError("no plate scale: give [camera] plate_scale_arcsec_per_px or a "
+                         f"calibration; the disc's width could not be measured "
+                         f"({geometry.message})", obs.path)
+    if source != "disc width and ephemeris semidiameter" and np.isfinite(measured):
+        rel = measured / scale - 1.0
+        if abs(rel) > 0.03:
+            notes.append(f"the disc's measured width implies {measured:.3f} arcsec/px, "
+                         f"{100 * rel:+.1f} % from the {source} value {scale:.3f}")
+    return float(scale), source, notes
+
+
+def _colour_offsets(calib: dict | None, colour_dy: dict[str, list[float]]):
+    if calib is not None and calib.get("channel_offset_px"):
+        offs = calib["channel_offset_px"]
+        return {c: float(offs[c][1]) for c in offs if c in ("r", "b")} | {"g": 0.0}, "calibration"
+    dy = {c: float(np.median(v)) if v else 0.0 for c, v in colour_dy.items()}
+    source = "horizon edge" if any(colour_dy.values()) else "none (assumed zero)"
+    return dy | {"g": 0.0}, source
+
+
+def _observables(fs, obs, table: FrameTable, colour_dy, strip) -> Measurement:
+    notes = list(fs.notes)
+    calib = read_calibration(obs.camera.calibration)
+    n_bad = int(np.count_nonzero(~table.horizon_found))
+    if n_bad == len(table):
+        raise InputError("no sea horizon found in any frame (is the horizon in view and "
+                         "straight?)", fs.folder)
+    if n_bad:
+        notes.append(f"{n_bad} of {len(table)} frames without a horizon were flagged and "
+                     "not used")
+    if not any(np.any(table.visible[c]) for c in CHANNELS):
+        raise InputError("no sun found above the horizon in any frame", fs.folder)
+    track = sun_track(table.t_unix_s, obs.site.latitude_deg, obs.site.longitude_deg,
+                      obs.site.eye_height_m)
+    sd = float(np.median(track.semidiameter_arcsec))
+    chord_frames = table.visible["r"] & table.horizon_found
+    geometry = disc_geometry(np.where(chord_frames, table.apex_height_px["r"], np.nan),
+                             np.where(chord_frames, table.width_px["r"], np.nan))
+    scale, scale_source, scale_notes = _plate_scale(obs, calib, geometry, sd)
+    notes += scale_notes
+    dy, dy_source = _colour_offsets(calib, colour_dy)
+    observables = sequence_observables(
+        table, plate_scale_arcsec_per_px=scale, plate_scale_source=scale_source,
+        colour_offset_dy_px=dy, colour_offset_source=dy_source, geometry=geometry)
+    return Measurement(fs, table, observables, track.altitude_deg, sd, strip, calib,
+                       tuple(notes) + observables.notes)

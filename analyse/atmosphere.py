@@ -46,6 +46,7 @@ __all__ = [
 
 # --- constants -------------------------------------------------------------------
 R_GAS = 8.314510  # J/(mol K), value used by Ciddor 1996 [2]
+R_STAR_USSA = 8.31432  # J/(mol K), gas constant as adopted by USSA 1976 [1] (its Table I uses it)
 M_AIR_USSA = 0.0289644  # kg/mol, mean molar mass of dry air, USSA 1976 [1]
 G0 = 9.80665  # m/s^2, standard gravity, USSA 1976 [1]
 R0_GEOPOTENTIAL = 6356766.0  # m, Earth radius for geopotential height, USSA 1976 [1]
@@ -101,7 +102,7 @@ def ussa1976(height_m: np.ndarray | float) -> tuple[np.ndarray, np.ndarray]:
 def _layer_pressure(p_b, t_b, lapse, dh):
     """Hydrostatic pressure within one USSA layer, eqs. 33a (lapse != 0) and 33b of [1]."""
     p_b, t_b, lapse, dh = (np.asarray(v, dtype=float) for v in (p_b, t_b, lapse, dh))
-    k = G0 * M_AIR_USSA / R_GAS
+    k = G0 * M_AIR_USSA / R_STAR_USSA
     with np.errstate(divide="ignore", invalid="ignore"):
         power = p_b * (t_b / (t_b + lapse * dh)) ** (k / np.where(lapse == 0, 1.0, lapse))
     iso = p_b * np.exp(-k * dh / t_b)
@@ -182,12 +183,15 @@ def _build(height_nodes_m, temperature_nodes_K, kinks, *, eye_height_m, pressure
 
 
 def _hydrostatic_pressure(z, t, eye_height_m, p_eye_Pa):
-    """Integrate dp/dz = -p g(z) M / (R T) from the lens outwards (trapezoid on g/T)."""
+    """Integrate dp/dz = -p g(z) M / (R T) from the lens outwards (trapezoid on g/T).
+
+    M and R are USSA 1976's, so that the standard case reproduces :func:`ussa1976`.
+    """
     g = G0 * (R0_GEOPOTENTIAL / (R0_GEOPOTENTIAL + z)) ** 2
     f = g / t
     cum = np.concatenate([[0.0], np.cumsum(0.5 * (f[1:] + f[:-1]) * np.diff(z))])
     cum_eye = np.interp(eye_height_m, z, cum)
-    return p_eye_Pa * np.exp(-(M_AIR_USSA / R_GAS) * (cum - cum_eye))
+    return p_eye_Pa * np.exp(-(M_AIR_USSA / R_STAR_USSA) * (cum - cum_eye))
 
 
 def _validate_air(eye_height_m, temperature_C, pressure_hPa, relative_humidity):

@@ -227,6 +227,7 @@ def _sunset_folder(folder: Path) -> Path:
 def _cmd_report(args: argparse.Namespace) -> int:
     from analyse.observation import read_observation
     from analyse.outfolder import atomic_folder, check_output, default_output
+    from analyse.infer import infer_lapse_rate
     from analyse.pipeline import measure_folder
     from analyse.results import result_document, write_frames_ecsv, write_result_json
 
@@ -239,7 +240,8 @@ def _cmd_report(args: argparse.Namespace) -> int:
     out = args.out if args.out is not None else default_output(folder, "report")
     out = check_output(out, input_folder=folder, force=args.force)
     measurement = measure_folder(folder, obs, progress=not args.quiet)
-    doc = result_document(measurement, None, layer_top_m=obs.model.layer_top_m)
+    inference = infer_lapse_rate(measurement, obs, progress=not args.quiet)
+    doc = result_document(measurement, inference, layer_top_m=obs.model.layer_top_m)
     with atomic_folder(out, force=args.force) as tmp:
         write_result_json(doc, tmp / "result.json")
         write_frames_ecsv(measurement, tmp / "frames.ecsv")

@@ -102,7 +102,8 @@ class SunsetModel:
 
 def build_model(conditions: Conditions, lapse_rate_K_per_km: float, *,
                 bands: dict[str, Band] | None = None, azimuth_deg: float = 270.0,
-                atmosphere: Atmosphere | None = None, rays: int = 48) -> SunsetModel:
+                atmosphere: Atmosphere | None = None, rays: int = 48,
+                span_arcmin: float = 45.0) -> SunsetModel:
     """Trace one atmosphere for all channels' wavelengths.
 
     Parameters
@@ -116,6 +117,8 @@ def build_model(conditions: Conditions, lapse_rate_K_per_km: float, *,
         Azimuth of the Sun [deg], for the Earth's radius of curvature along the path.
     atmosphere : Atmosphere, optional
         A ready atmosphere (e.g. a tabulated profile) instead of the linear layer.
+    rays, span_arcmin : int, float
+        Rays per wavelength and how far above the horizon they reach [arcmin].
     """
     c = conditions
     bands = default_bands() if bands is None else bands
@@ -128,7 +131,7 @@ def build_model(conditions: Conditions, lapse_rate_K_per_km: float, *,
     lam = np.concatenate([bands[n].wavelength_nm for n in names])
     radius = earth_radius_of_curvature_m(c.latitude_deg, azimuth_deg)
     medium = make_medium(atmosphere, lam, earth_radius_m=radius)
-    curve = transfer_curve(medium, rays=rays)
+    curve = transfer_curve(medium, rays=rays, span_arcmin=span_arcmin)
     p_eye_hPa = float(np.interp(c.eye_height_m, atmosphere.height_m, atmosphere.pressure_Pa)) / 100
     channels, start = {}, 0
     for n in names:
@@ -186,15 +189,25 @@ def visible_fraction(model: SunsetModel, channel: str, centre_altitude_deg,
     return total
 
 
-def limb_elevation_deg(model: SunsetModel, channel: str, top_altitude_deg) -> np.ndarray:
+def limb_elevation_deg(model: SunsetModel, channel: str, top_altitude_deg, *,
+                       extrapolate: bool = False) -> np.ndarray:
     """Apparent elevation [deg] of a channel's upper limb: weighted mean over its nodes.
 
-    NaN where the limb is below the horizon at any node carrying weight.
+    NaN where the limb is below the horizon at any node carrying weight, unless
+    ``extrapolate``: then the transfer curve's first piece is continued below the
+    horizon, so that a fit sees how far below the horizon the model puts the limb.
     """
     ch = model.channels[channel]
     a_top = np.atleast_1d(np.asarray(top_altitude_deg, dtype=float))
-    e = np.stack([model.curve.elevation_of(k, a_top) for k in ch.node_index])
-    return np.sum(ch.weights[:, None] * e, axis=0)
+    rows = []
+    for k in ch.node_index:
+        e = model.curve.elevation_of(k, a_top)
+        if extrapolate:
+            ec, ac = model.curve.apparent_elevation_deg[k], model.curve.true_altitude_deg[k]
+            slope = (ec[1] - ec[0]) / (ac[1] - ac[0])
+            e = np.where(np.isnan(e) & (a_top < ac[0]), ec[0] + slope * (a_top - ac[0]), e)
+        rows.append(e)
+    return np.sum(ch.weights[:, None] * np.stack(rows), axis=0)
 
 
 def last_light_altitude_deg(model: SunsetModel, channel: str, semidiameter_arcsec: float,

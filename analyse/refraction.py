@@ -1,25 +1,37 @@
 """Ray tracing through a spherically stratified atmosphere.
 
 A ray is followed outwards from the observer (the reverse of the light's way) in arc
-length ``s`` with state ``(r, phi, zeta)``: distance from the Earth's centre, angle
-travelled around the centre, and zenith angle relative to the local vertical::
+length ``s``. With ``z`` the height above the sea, ``r = R + z``, ``zeta`` the zenith
+angle relative to the local vertical and ``phi`` the angle travelled around the centre::
 
-    dr/ds    = cos(zeta)
+    dz/ds    = cos(zeta)
     dphi/ds  = sin(zeta) / r
     dzeta/ds = -sin(zeta) * (1/r + n'/n)
 
-The equations are regular where a ray turns (zeta = 90 deg), so rays below the
-astronomical horizon, ducts and mirages need no special cases. Along every ray
-Bouguer's invariant ``n r sin(zeta)`` is constant; the tracer reports how well it held.
-Where a ray leaves the tabulated atmosphere, the direction it would have in vacuum is
-``zeta_vac = asin(n_top sin(zeta))`` at the same point, and its direction relative to the
-observer's horizontal plane is ``90 deg - (zeta_vac + phi)``: the true altitude of the
-point on the sky whose light arrives along the ray.
+carried as ``cos(zeta)`` and ``sin(zeta)`` (``d cos/ds = sin^2 (1/r + n'/n)``,
+``d sin/ds = -cos sin (1/r + n'/n)``: no trigonometry per step). The equations are regular
+where a ray turns (zeta = 90 deg), so rays below the astronomical horizon, ducts and
+mirages need no special cases.
 
-All rays (any mix of elevations and wavelengths) advance together as numpy arrays with
-a classical fourth-order Runge-Kutta step whose length grows with height: the height
-change per step is limited to a small fraction of the height above the sea and of
-the distance to the nearest kink of the temperature profile.
+Bouguer's invariant ``c = n r sin(zeta)`` is constant along a ray. It gives the direction
+in which a ray leaves the tabulated atmosphere exactly, ``sin(zeta_vac) = c / r``, so only
+``phi`` carries integration error; the integrated ``sin(zeta)`` is checked against ``c``
+and the discrepancy reported. The point on the sky whose light arrives along the ray has
+the true altitude ``90 deg - (zeta_vac + phi)`` relative to the observer's horizontal plane.
+
+Steps. All rays (any mix of elevations and wavelengths, or of atmospheres sharing a
+height grid) advance together as numpy arrays with the classical fourth-order
+Runge-Kutta method. A step changes the height by at most ``STEP_FRACTION`` of
+``z + STEP_HEIGHT_M`` and runs at most ``sqrt(2 R dz)`` along a horizontal ray. Where dT/dz
+jumps (``kinks_m``: the layer top, the standard atmosphere's layer bases, a tabulated
+profile's nodes) ``d ln n/dz`` jumps too, and a Runge-Kutta step across a jump is only
+first-order accurate. So a step that would cross a kink is shortened to end just beyond
+it (its length from ``z + s cos(zeta) + s^2 d2z/ds2 / 2``), and within a step the profile
+is read on the starting side of the kink (extrapolated a hair beyond it).
+
+The medium. ``d ln n/dz`` is linear in each height cell and continuous, except at kinks,
+where each side takes the value that makes its cell's integral equal to the cell's
+change of ``ln n``; so the integrated path and ``n`` agree, which the Bouguer check needs.
 
 References
 ----------
@@ -31,6 +43,7 @@ References
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -51,6 +64,7 @@ __all__ = [
     "sea_horizon",
     "TransferCurve",
     "transfer_curve",
+    "transfer_curves",
     "refraction_table",
     "earth_radius_of_curvature_m",
 ]
@@ -60,8 +74,15 @@ WGS84_A_M = 6378137.0  # m, WGS 84 semi-major axis
 WGS84_F = 1.0 / 298.257223563  # WGS 84 flattening
 
 ESCAPED, SEA, TRAPPED = 0, 1, 2
+_STOPPED = 3  # internal: reached the requested stop height
+STEP_FRACTION = 0.1  # height change per step / (z + STEP_HEIGHT_M); set by the convergence
+STEP_HEIGHT_M = 1.0  # m; tests in tests/published/test_refraction.py
+MAX_STEP_M = 20000.0  # m, longest step along a ray
 _MAX_STEPS = 20000
 _MAX_PHI_RAD = 0.5  # a ray still inside the atmosphere after ~3000 km is trapped (a duct)
+_OVERSHOOT_M = 1e-5  # m: a shortened step aims this far beyond the kink
+_INSIDE_M = 1e-6  # m: within a step the profile is read at least this far inside its layer
+_BRANCH = np.array([[1.0], [-1.0]])  # root branches for the layer's upper / lower bound
 
 
 @dataclass(frozen=True)
@@ -73,10 +94,12 @@ class Medium:
     height_m : (H,) ndarray
         Height nodes above the sea [m].
     ln_n, dln_n_dz : (L, H) ndarray
-        ``ln n`` and its height derivative [1/m] for each wavelength.
-    density : (H,) ndarray
-        Dry-air density relative to standard air (for the airmass along a ray).
-    column : float
+        ``ln n`` and its height derivative [1/m] for each row (a wavelength; or an
+        atmosphere-and-wavelength pair, see :func:`transfer_curves`).
+    density : (H,) or (L, H) ndarray
+        Dry-air density relative to standard air (for the airmass along a ray); per row
+        when the rows come from several atmospheres.
+    column : float or (L,) ndarray
         Relative density integrated vertically from the eye to the top [m].
     wavelength_nm : (L,) ndarray
     kinks_m : (K,) ndarray
@@ -88,7 +111,7 @@ class Medium:
     ln_n: np.ndarray
     dln_n_dz: np.ndarray
     density: np.ndarray
-    column: float
+    column: float | np.ndarray
     wavelength_nm: np.ndarray
     kinks_m: np.ndarray
     earth_radius_m: float
@@ -164,6 +187,25 @@ def make_medium(atmosphere: Atmosphere, wavelength_nm, *,
                   float(earth_radius_m), float(atmosphere.eye_height_m))
 
 
+def _stack_media(media: Sequence[Medium]) -> Medium:
+    """One medium whose rows are all rows of ``media`` (same grid, kinks, radius, eye)."""
+    first = media[0]
+    for m in media[1:]:
+        if not (np.array_equal(m.height_m, first.height_m)
+                and np.array_equal(m.kinks_m, first.kinks_m)
+                and m.earth_radius_m == first.earth_radius_m
+                and m.eye_height_m == first.eye_height_m):
+            raise ValueError("media to trace together must share the height grid, kinks, "
+                             "Earth radius and eye height")
+    shape = [(m.ln_n.shape[0], m.height_m.size) for m in media]
+    density = np.concatenate([np.broadcast_to(m.density, s) for m, s in zip(media, shape)])
+    column = np.concatenate([np.broadcast_to(m.column, s[:1]) for m, s in zip(media, shape)])
+    return Medium(first.height_m, np.concatenate([m.ln_n for m in media]),
+                  np.concatenate([m.dln_n_dz for m in media]), density, column,
+                  np.concatenate([m.wavelength_nm for m in media]), first.kinks_m,
+                  first.earth_radius_m, first.eye_height_m)
+
+
 @dataclass(frozen=True)
 class RayEnds:
     """Where each traced ray went.
@@ -180,7 +222,8 @@ class RayEnds:
     min_height_m : (N,) ndarray
         Lowest height reached [m].
     bouguer_rel_error : (N,) ndarray
-        ``|c_end / c_start - 1|`` of Bouguer's invariant ``n r sin(zeta)``.
+        ``|c_end / c_start - 1|`` of Bouguer's invariant ``n r sin(zeta)``, with the
+        integrated ``sin(zeta)`` at the exit (NaN for rays that did not escape).
     crossing_phi_rad, crossing_zeta_rad : (N,) ndarray
         ``phi`` and ``zeta`` where the ray first climbed through ``record_height_m``
         (NaN if it never did or none was asked).
@@ -199,46 +242,212 @@ class RayEnds:
 
 
 class _Profile:
-    """Linear interpolation of the medium's tables for rays of mixed wavelengths.
+    """The medium's tables laid out for the tracer.
 
-    Each cell ``i`` stores its value at the lower node and its slope, so that one
-    look-up and three gathers give the gradient of ``ln n`` and the density.
+    ``d ln n/dz`` and the density are ``a + b z`` in each cell, stored row after row so
+    that one index ``row * cells + cell`` reads both. Layers lie between consecutive
+    landing heights (kinks, the top, heights where rays stop or are recorded); each
+    layer reads the table between the kinks around it.
     """
 
-    def __init__(self, medium: Medium) -> None:
+    def __init__(self, medium: Medium, landing_m: Sequence[float] = ()) -> None:
         z = medium.height_m
-        self.z = z
-        self.h = z.size
+        self.z_inner = z[1:-1]
+        self.cells = z.size - 1
+        self.top_m = float(z[-1])
+        knodes = _kink_nodes(z, medium.kinks_m)
+        lo, hi = _cell_gradients(medium, knodes)
         dz = np.diff(z)
-        g = medium.dln_n_dz
-        self.g0 = g[:, :-1].ravel()
-        self.gs = (np.diff(g, axis=1) / dz).ravel()
-        self.d0 = medium.density[:-1]
-        self.ds = np.diff(medium.density) / dz
+        b = (hi - lo) / dz
+        self.ga, self.gb = (lo - b * z[:-1]).ravel(), b.ravel()
+        dens = np.atleast_2d(medium.density)
+        b = np.diff(dens, axis=1) / dz
+        self.da, self.db = (dens[:, :-1] - b * z[:-1]).ravel(), b.ravel()
+        self.density_per_row = dens.shape[0] > 1
+        land = [h for h in (*medium.kinks_m, *landing_m) if z[0] < h < z[-1]]
+        self.land = np.unique(np.asarray([*land, z[-1]], dtype=float))
+        lower = np.concatenate([[-np.inf], self.land])
+        upper = np.concatenate([self.land, [np.inf]])
+        self.aim_up, self.aim_down = upper + _OVERSHOOT_M, lower - _OVERSHOOT_M
+        inside = 0.5 * (np.where(np.isinf(lower), upper - 1.0, lower)
+                        + np.where(np.isinf(upper), lower + 1.0, upper))
+        edges = np.concatenate([[-np.inf], z[knodes], [np.inf]])
+        j = np.searchsorted(z[knodes], inside)
+        self.read_lo, self.read_hi = edges[j] + _INSIDE_M, edges[j + 1] - _INSIDE_M
 
-    def __call__(self, height_m, base):
-        """Gradient of ln n [1/m] and relative density at heights [m]."""
-        i = np.searchsorted(self.z, height_m)
-        np.clip(i - 1, 0, self.h - 2, out=i)
-        dz = height_m - self.z[i]
-        j = base + i
-        return self.g0[j] + dz * self.gs[j], self.d0[i] + dz * self.ds[i]
+    def rates(self, y, base, read_lo, read_hi, radius, out):
+        """Derivatives of ``(z, cos, sin, phi)`` at states ``y`` (3 or 4, N) into ``out``.
+
+        Returns the cell index of each ray (for the density look-up).
+        """
+        z, c, s = y[0], y[1], y[2]
+        i = np.searchsorted(self.z_inner, np.clip(z, read_lo, read_hi), side="right")
+        j = i + base
+        w = np.take(self.ga, j)
+        w += z * np.take(self.gb, j)
+        ir = 1.0 / (radius + z)
+        w += ir
+        w *= s
+        out[0] = c
+        np.multiply(s, w, out=out[1])
+        np.multiply(c, w, out=out[2])
+        np.negative(out[2], out=out[2])
+        np.multiply(s, ir, out=out[3])
+        return i
+
+    def density(self, z, i, dbase):
+        j = i + dbase
+        return np.take(self.da, j) + z * np.take(self.db, j)
 
 
-def _derivatives(r, zeta, base, prof, radius):
-    g, d = prof(r - radius, base)
-    s, c = np.sin(zeta), np.cos(zeta)
-    return c, s / r, -s * (1.0 / r + g), d
+def _kink_nodes(z: np.ndarray, kinks_m: np.ndarray) -> np.ndarray:
+    """Indices of interior grid nodes that are kinks."""
+    i = np.searchsorted(z, kinks_m)
+    ok = (i > 0) & (i < z.size - 1)
+    i = np.unique(i[ok][z[i[ok]] == np.asarray(kinks_m)[ok]])
+    return i.astype(np.intp)
 
 
-def _step_length(z, zeta, kinks, radius, scale):
-    """Arc length per step [m]: the height change stays below ~10 % of the height."""
-    dz_allow = 0.1 * scale * (z + 1.0)
-    if kinks.size:
-        near = np.min(np.abs(z[:, None] - kinks[None, :]), axis=1)
-        dz_allow = np.minimum(dz_allow, np.maximum(0.5 * near, 2e-3 * scale * (z + 1.0)))
-    ds = dz_allow / np.maximum(np.abs(np.cos(zeta)), 1e-9)
-    return np.minimum(ds, np.minimum(np.sqrt(2.0 * radius * dz_allow), 20000.0 * scale))
+def _cell_gradients(medium: Medium, knodes: np.ndarray):
+    """``d ln n/dz`` at the lower and upper end of every cell, shapes (L, H-1).
+
+    At a kink each side's value makes its cell's trapezoid integral equal to the cell's
+    change of ``ln n`` (a second-order one-sided estimate); a cell between two kinks is
+    given its secant slope.
+    """
+    g = medium.dln_n_dz
+    lo, hi = g[:, :-1].copy(), g[:, 1:].copy()
+    secant = np.diff(medium.ln_n, axis=1) / np.diff(medium.height_m)
+    if knodes.size:
+        is_kink = np.zeros(medium.height_m.size, dtype=bool)
+        is_kink[knodes] = True
+        top, bottom = is_kink[1:], is_kink[:-1]
+        both = top & bottom
+        hi[:, top & ~both] = 2.0 * secant[:, top & ~both] - lo[:, top & ~both]
+        lo[:, bottom & ~both] = 2.0 * secant[:, bottom & ~both] - hi[:, bottom & ~both]
+        lo[:, both] = hi[:, both] = secant[:, both]
+    # Elsewhere the nodal values' trapezoid misses the cell's change of ln n by
+    # O(dz^2 g''): shift both ends by the difference (1e-5 of g), so that the integrated
+    # n passes through every node's n.
+    shift = secant - 0.5 * (lo + hi)
+    return lo + shift, hi + shift
+
+
+def _step_length(z, c, d2z, layer, prof, radius, scale):
+    """Arc length of the next step [m] for each ray (see the module docstring)."""
+    dz = (STEP_FRACTION * scale) * (z + STEP_HEIGHT_M)
+    ds = np.minimum(dz / np.maximum(np.abs(c), 1e-9), np.sqrt((2.0 * radius) * dz))
+    np.minimum(ds, MAX_STEP_M * scale, out=ds)
+    # Shorten to land just beyond the layer's bound: the smallest positive root of
+    # z + c s + d2z s^2 / 2 = aim, for the bound above and the one below.
+    delta = np.stack([prof.aim_up[layer] - z, prof.aim_down[layer] - z])
+    with np.errstate(invalid="ignore", divide="ignore"):
+        s = 2.0 * delta / (c + _BRANCH * np.sqrt(c * c + 2.0 * d2z * delta))
+    s = np.where(s > 0.0, s, np.inf).min(axis=0)
+    return np.minimum(ds, s, out=ds)
+
+
+@dataclass
+class _Run:
+    """Where the rays of one integration ended (internal)."""
+
+    y: np.ndarray  # (4, N) final (z, cos, sin, phi)
+    fate: np.ndarray  # (N,) int8
+    column_m: np.ndarray  # (N,) relative density integrated along the ray [m]
+    min_height_m: np.ndarray  # (N,)
+    record: np.ndarray  # (4, N) state where the ray first climbed through record_m
+    steps: int
+
+
+def _integrate(prof: _Profile, y0: np.ndarray, rows: np.ndarray, radius: float, *,
+               column0_m=0.0, stop_m: float | None = None, record_m: float | None = None,
+               step_scale: float = 1.0) -> _Run:
+    """Advance rays from states ``y0`` (4, N) until they escape, meet the sea or stop."""
+    n = y0.shape[1]
+    y, idx = y0.copy(), np.arange(n)
+    base = rows * prof.cells
+    dbase = base if prof.density_per_row else np.zeros_like(base)
+    col = np.broadcast_to(np.asarray(column0_m, dtype=float), (n,)).copy()
+    zmin = y[0].copy()
+    res = _Run(np.full((4, n), np.nan), np.full(n, TRAPPED, dtype=np.int8), np.full(n, np.nan),
+               np.full(n, np.nan), np.full((4, n), np.nan), 0)
+    stop = np.inf if stop_m is None else stop_m
+    k = np.empty((4, 4, n))
+    steps = 0
+    while idx.size and steps < _MAX_STEPS:
+        steps += 1
+        m = idx.size
+        k1, k2, k3, k4 = k[0, :, :m], k[1, :, :m], k[2, :, :m], k[3, :, :m]
+        layer = np.searchsorted(prof.land, y[0], side="right")
+        lo, hi = prof.read_lo[layer], prof.read_hi[layer]
+        prof.rates(y, base, lo, hi, radius, k1)
+        ds = _step_length(y[0], y[1], k1[1], layer, prof, radius, step_scale)
+        half = 0.5 * ds
+        i2 = prof.rates(y[:3] + half * k1[:3], base, lo, hi, radius, k2)
+        z_mid = y[0] + half * k1[0]
+        prof.rates(y[:3] + half * k2[:3], base, lo, hi, radius, k3)
+        prof.rates(y[:3] + ds * k3[:3], base, lo, hi, radius, k4)
+        col += ds * prof.density(z_mid, i2, dbase)
+        z_old, c_old = y[0].copy(), y[1].copy()
+        k2 += k3
+        k2 *= 2.0
+        k2 += k1
+        k2 += k4
+        y += (ds / 6.0) * k2
+        _lowest(zmin, z_old, c_old, y, ds)
+        if record_m is not None:
+            hit = (z_old < record_m) & (y[0] >= record_m) & np.isnan(res.record[0, idx])
+            res.record[:, idx[hit]] = y[:, hit]
+        done = (zmin < 0.0) | (y[0] >= prof.top_m) | (y[0] >= stop) | (y[3] > _MAX_PHI_RAD)
+        if np.any(done):
+            j = idx[done]
+            res.y[:, j], res.column_m[j], res.min_height_m[j] = y[:, done], col[done], zmin[done]
+            res.fate[j] = np.where(zmin[done] < 0.0, SEA, np.where(
+                y[0, done] >= prof.top_m, ESCAPED, np.where(y[0, done] >= stop, _STOPPED,
+                                                            TRAPPED)))
+            keep = ~done
+            idx, y, col, zmin = idx[keep], y[:, keep], col[keep], zmin[keep]
+            base, dbase = base[keep], dbase[keep]
+    if idx.size:  # out of steps: trapped
+        res.y[:, idx], res.column_m[idx], res.min_height_m[idx] = y, col, zmin
+    res.steps = steps
+    return res
+
+
+def _lowest(zmin, z_old, c_old, y, ds):
+    """Update the lowest height, also where a ray turned inside the step."""
+    np.minimum(zmin, y[0], out=zmin)
+    turned = (c_old < 0.0) & (y[1] >= 0.0)
+    if np.any(turned):
+        c0, c1 = c_old[turned], y[1, turned]
+        z_turn = z_old[turned] - c0 * c0 * ds[turned] / (2.0 * (c1 - c0))
+        zmin[turned] = np.minimum(zmin[turned], z_turn)
+
+
+def _ln_n_at(medium: Medium, height_m: float) -> np.ndarray:
+    """``ln n`` of every row at one height [m], shape (L,)."""
+    z = medium.height_m
+    i = int(np.clip(np.searchsorted(z, height_m) - 1, 0, z.size - 2))
+    f = (height_m - z[i]) / (z[i + 1] - z[i])
+    return medium.ln_n[:, i] + f * (medium.ln_n[:, i + 1] - medium.ln_n[:, i])
+
+
+def _column(medium: Medium, rows: np.ndarray) -> np.ndarray:
+    return np.broadcast_to(np.asarray(medium.column, dtype=float), medium.ln_n.shape[:1])[rows]
+
+
+def _exits(medium: Medium, run: _Run, rows: np.ndarray, c0: np.ndarray):
+    """True altitude [deg] and Bouguer error of the escaped rays (NaN for the others)."""
+    z, c, s, phi = run.y
+    out = run.fate == ESCAPED
+    r = medium.earth_radius_m + z
+    sin_vac = np.clip(c0 / r, -1.0, 1.0)
+    zeta_vac = np.where(c >= 0.0, np.arcsin(sin_vac), np.pi - np.arcsin(sin_vac))
+    alt = np.where(out, 90.0 - np.degrees(zeta_vac + phi), np.nan)
+    n_top = np.exp(medium.ln_n[rows, -1])
+    with np.errstate(invalid="ignore"):
+        bouguer = np.abs(n_top * r * s / np.hypot(c, s) / c0 - 1.0)
+    return alt, np.where(out, bouguer, np.nan)
 
 
 def trace_rays(medium: Medium, apparent_elevation_deg, wavelength_index, *,
@@ -252,7 +461,7 @@ def trace_rays(medium: Medium, apparent_elevation_deg, wavelength_index, *,
     apparent_elevation_deg : (N,) array_like
         Elevation of each ray at the start above the local horizontal plane [deg].
     wavelength_index : (N,) array_like of int
-        Index into ``medium.wavelength_nm`` for each ray.
+        Row of ``medium`` (index into ``medium.wavelength_nm``) for each ray.
     start_height_m : float, optional
         Height of the start [m]; default the eye height.
     record_height_m : float, optional
@@ -265,71 +474,19 @@ def trace_rays(medium: Medium, apparent_elevation_deg, wavelength_index, *,
     RayEnds
     """
     e = np.atleast_1d(np.asarray(apparent_elevation_deg, dtype=float))
-    lam = np.broadcast_to(np.asarray(wavelength_index, dtype=np.intp), e.shape).copy()
+    rows = np.broadcast_to(np.asarray(wavelength_index, dtype=np.intp), e.shape).copy()
     radius = medium.earth_radius_m
     h0 = medium.eye_height_m if start_height_m is None else float(start_height_m)
-    n_rays = e.size
-    r = np.full(n_rays, radius + h0)
-    phi = np.zeros(n_rays)
-    zeta = np.radians(90.0 - e)
-    col = np.zeros(n_rays)
-    zmin = np.full(n_rays, h0)
-    base_all = lam * (medium.height_m.size - 1)
-    c0 = medium.n_at(h0, lam) * r * np.sin(zeta)
-    prof = _Profile(medium)
-    top = medium.top_m
-
-    out_alt = np.full(n_rays, np.nan)
-    fate = np.full(n_rays, TRAPPED, dtype=np.int8)
-    air = np.full(n_rays, np.nan)
-    bouguer = np.full(n_rays, np.nan)
-    cross_phi = np.full(n_rays, np.nan)
-    cross_zeta = np.full(n_rays, np.nan)
-    idx = np.arange(n_rays)
-    steps = 0
-    while idx.size and steps < _MAX_STEPS:
-        steps += 1
-        base = base_all[idx]
-        z_old = r - radius
-        ds = _step_length(z_old, zeta, medium.kinks_m, radius, step_scale)
-        k1 = _derivatives(r, zeta, base, prof, radius)
-        k2 = _derivatives(r + 0.5 * ds * k1[0], zeta + 0.5 * ds * k1[2], base, prof, radius)
-        k3 = _derivatives(r + 0.5 * ds * k2[0], zeta + 0.5 * ds * k2[2], base, prof, radius)
-        k4 = _derivatives(r + ds * k3[0], zeta + ds * k3[2], base, prof, radius)
-        w = ds / 6.0
-        r_new = r + w * (k1[0] + 2 * k2[0] + 2 * k3[0] + k4[0])
-        phi_new = phi + w * (k1[1] + 2 * k2[1] + 2 * k3[1] + k4[1])
-        zeta_new = zeta + w * (k1[2] + 2 * k2[2] + 2 * k3[2] + k4[2])
-        col += w * (k1[3] + 2 * k2[3] + 2 * k3[3] + k4[3])
-        z_new = r_new - radius
-        if record_height_m is not None:
-            hit = (z_old < record_height_m) & (z_new >= record_height_m) & np.isnan(cross_phi[idx])
-            if np.any(hit):
-                f = (record_height_m - z_old[hit]) / (z_new[hit] - z_old[hit])
-                cross_phi[idx[hit]] = phi[hit] + f * (phi_new[hit] - phi[hit])
-                cross_zeta[idx[hit]] = zeta[hit] + f * (zeta_new[hit] - zeta[hit])
-        r, phi, zeta = r_new, phi_new, zeta_new
-        zmin[idx] = np.minimum(zmin[idx], z_new)
-        sea = z_new < 0.0
-        out = z_new >= top
-        lost = phi > _MAX_PHI_RAD
-        if np.any(out):
-            n_top = medium.n_at(z_new[out], lam[idx[out]])
-            sin_vac = np.clip(n_top * np.sin(zeta[out]), -1.0, 1.0)
-            zeta_vac = np.where(np.cos(zeta[out]) >= 0, np.arcsin(sin_vac), np.pi - np.arcsin(sin_vac))
-            out_alt[idx[out]] = 90.0 - np.degrees(zeta_vac + phi[out])
-            fate[idx[out]] = ESCAPED
-            air[idx[out]] = col[out] / medium.column
-            c_end = n_top * r[out] * np.sin(zeta[out])
-            c_start = c0[idx[out]]
-            scale = np.maximum(np.abs(c_start), medium.earth_radius_m * 1e-9)  # zenith rays: c = 0
-            bouguer[idx[out]] = np.abs(c_end - c_start) / scale
-        fate[idx[sea]] = SEA
-        done = sea | out | lost
-        if np.any(done):
-            keep = ~done
-            idx, r, phi, zeta, col = idx[keep], r[keep], phi[keep], zeta[keep], col[keep]
-    return RayEnds(out_alt, fate, air, zmin, bouguer, cross_phi, cross_zeta, steps)
+    y0 = np.stack([np.full(e.size, h0), np.sin(np.radians(e)), np.cos(np.radians(e)),
+                   np.zeros(e.size)])
+    c0 = np.exp(_ln_n_at(medium, h0))[rows] * (radius + h0) * y0[2]
+    landing = () if record_height_m is None else (record_height_m,)
+    run = _integrate(_Profile(medium, landing), y0, rows, radius, record_m=record_height_m,
+                     step_scale=step_scale)
+    alt, bouguer = _exits(medium, run, rows, c0)
+    air = np.where(run.fate == ESCAPED, run.column_m / _column(medium, rows), np.nan)
+    return RayEnds(alt, run.fate, air, run.min_height_m, bouguer, run.record[3],
+                   np.arctan2(run.record[2], run.record[1]), run.steps)
 
 
 @dataclass(frozen=True)
@@ -343,8 +500,8 @@ class SeaHorizon:
     true_altitude_deg : (L,) ndarray
         The true altitude a body must have to sit on the horizon [deg].
     airmass : (L,) ndarray
-        Dry-air column along the ray beyond the tangent point, relative to the
-        vertical column above the eye.
+        Dry-air column along the ray from space past its tangent point to the eye,
+        relative to the vertical column above the eye.
     method : str
         "tangent ray" (the ray grazing the sea, traced from its tangent point) or
         "search" (bisection for the lowest escaping ray, used where a duct below the
@@ -366,33 +523,82 @@ class SeaHorizon:
         return 60.0 * (self.apparent_elevation_deg - self.true_altitude_deg)
 
 
+@dataclass(frozen=True)
+class _Graze:
+    """The grazing rays where they climb through the eye height (internal)."""
+
+    y: np.ndarray  # (4, L) state at the eye height
+    c0: np.ndarray  # (L,) Bouguer's invariant n(0) R
+    column_m: np.ndarray  # (L,) column from the tangent point to the eye [m]
+
+    @property
+    def elevation_deg(self) -> np.ndarray:
+        return -np.degrees(np.arctan2(self.y[1], self.y[2]))
+
+
+def _graze(medium: Medium, step_scale: float) -> _Graze | None:
+    """Trace the ray grazing the sea up to the eye (None where a duct prevents it).
+
+    Where ``m(z) = n (R + z)`` increases from the sea to the eye, the horizon ray grazes
+    the sea. By the symmetry of a spherically stratified medium it is traced from its
+    tangent point: where it climbs through the eye height it has the zenith angle the
+    observer sees mirrored, and beyond the eye it continues as the observer's ray would.
+    """
+    n_lam = medium.ln_n.shape[0]
+    rows = np.arange(n_lam)
+    if any(_duct_below(medium, k) for k in rows):
+        return None
+    radius, h = medium.earth_radius_m, medium.eye_height_m
+    y0 = np.zeros((4, n_lam))
+    y0[2] = 1.0
+    c0 = np.exp(medium.ln_n[:, 0]) * radius
+    if h <= 0.0:
+        return _Graze(y0, c0, np.zeros(n_lam))
+    run = _integrate(_Profile(medium, (h,)), y0, rows, radius, stop_m=h, step_scale=step_scale)
+    if np.any(run.fate != _STOPPED):
+        return None
+    return _Graze(run.y, c0, run.column_m)
+
+
+def _horizon_from(medium: Medium, graze: _Graze, run: _Run) -> SeaHorizon:
+    """The horizon from the grazing rays' continuation beyond the eye (first L rays).
+
+    The continuation started with twice the tangent-to-eye column: the light crosses
+    that air on both sides of the tangent point.
+    """
+    n_lam = graze.c0.size
+    rows = np.arange(n_lam)
+    sub = _Run(run.y[:, :n_lam], run.fate[:n_lam], run.column_m[:n_lam],
+               run.min_height_m[:n_lam], run.record[:, :n_lam], run.steps)
+    alt, _ = _exits(medium, sub, rows, graze.c0)
+    true = alt - np.degrees(graze.y[3])  # the eye's horizontal plane is tilted by phi_h
+    air = sub.column_m / _column(medium, rows)
+    return SeaHorizon(graze.elevation_deg, true, air, "tangent ray")
+
+
 def sea_horizon(medium: Medium, *, step_scale: float = 1.0) -> SeaHorizon:
     """Find the sea-horizon ray for every wavelength of the medium.
 
-    Where the modified index ``m(z) = n (R + z)`` increases from the sea to the eye (no
-    duct below the eye), the horizon ray grazes the sea. By the symmetry of a
-    spherically stratified medium it is traced once from its tangent point upwards:
-    where it climbs through the eye height it has the zenith angle ``zeta_h`` that the
-    observer sees mirrored, so the dip is ``90 deg - zeta_h``, and the angle ``phi_h``
-    between eye and tangent point adds to the exit direction.
+    Where ``m(z) = n (R + z)`` increases from the sea to the eye (no duct below the
+    eye), the horizon ray grazes the sea: it is traced from its tangent point (see
+    :func:`_graze`), so the dip is exact to the integration. Otherwise the lowest
+    escaping ray is searched for (``method == "search"``).
     """
-    n_lam = medium.wavelength_nm.size
-    lam = np.arange(n_lam)
-    h = medium.eye_height_m
-    ducted = any(_duct_below(medium, k) for k in lam)
-    if h <= 0.0 or ducted:
+    graze = _graze(medium, step_scale)
+    if graze is None:
         return _horizon_by_search(medium, step_scale=step_scale)
-    ends = trace_rays(medium, np.zeros(n_lam), lam, start_height_m=0.0, record_height_m=h,
-                      step_scale=step_scale)
-    elev = -(90.0 - np.degrees(ends.crossing_zeta_rad))
-    true = ends.true_altitude_deg - np.degrees(ends.crossing_phi_rad)
-    # The column below the eye is crossed twice in the tangent ray's full path.
-    return SeaHorizon(elev, true, ends.airmass, "tangent ray")
+    run = _integrate(_Profile(medium), graze.y, np.arange(graze.c0.size),
+                     medium.earth_radius_m, column0_m=2.0 * graze.column_m,
+                     step_scale=step_scale)
+    return _horizon_from(medium, graze, run)
 
 
 def _duct_below(medium: Medium, k: int) -> bool:
-    """True where m(z) falls below m(0) somewhere between the sea and the eye."""
-    below = medium.height_m <= medium.eye_height_m
+    """True where m(z) falls below m(0) somewhere between the sea and the eye.
+
+    At the eye height 0, true where m decreases from the sea upwards (a surface duct).
+    """
+    below = medium.height_m <= max(medium.eye_height_m, medium.height_m[1])
     m = medium.modified_index(k)[below]
     return bool(m.size > 1 and np.any(m[1:] <= m[0]))
 
@@ -400,7 +606,7 @@ def _duct_below(medium: Medium, k: int) -> bool:
 def _horizon_by_search(medium: Medium, *, step_scale: float = 1.0, rounds: int = 5,
                        rays: int = 16) -> SeaHorizon:
     """Bisection, all wavelengths at once, for the lowest ray that escapes."""
-    n_lam = medium.wavelength_nm.size
+    n_lam = medium.ln_n.shape[0]
     h = max(medium.eye_height_m, 0.0)
     geometric_dip = np.degrees(np.arccos(medium.earth_radius_m / (medium.earth_radius_m + h)))
     lo = np.full(n_lam, -2.0 * geometric_dip - 0.05)
@@ -474,6 +680,9 @@ def transfer_curve(medium: Medium, *, span_arcmin: float = 45.0, rays: int = 48,
                    step_scale: float = 1.0, horizon: SeaHorizon | None = None) -> TransferCurve:
     """Trace the transfer curve of every wavelength from its sea horizon upwards.
 
+    The grazing rays' continuation beyond the eye and the curve's rays are traced
+    together in one integration.
+
     Parameters
     ----------
     medium : Medium
@@ -485,20 +694,58 @@ def transfer_curve(medium: Medium, *, span_arcmin: float = 45.0, rays: int = 48,
     horizon : SeaHorizon, optional
         Reuse a horizon already found.
     """
-    hz = sea_horizon(medium, step_scale=step_scale) if horizon is None else horizon
-    n_lam = medium.wavelength_nm.size
+    n_lam = medium.ln_n.shape[0]
+    graze = _graze(medium, step_scale) if horizon is None else None
+    if horizon is None and graze is None:
+        horizon = _horizon_by_search(medium, step_scale=step_scale)
+    e_h = horizon.apparent_elevation_deg if graze is None else graze.elevation_deg
     u = np.linspace(0.0, 1.0, rays) ** 2
-    e = hz.apparent_elevation_deg[:, None] + (span_arcmin / 60.0) * u[None, :]
-    e[:, 0] += 1e-7  # a hair above the grazing ray, which would touch the sea
-    ends = trace_rays(medium, e[:, 1:].ravel(), np.repeat(np.arange(n_lam), rays - 1),
-                      step_scale=step_scale)
+    e = e_h[:, None] + (span_arcmin / 60.0) * u[None, :]
+    rows = np.repeat(np.arange(n_lam), rays - 1)
+    radius, h = medium.earth_radius_m, medium.eye_height_m
+    er = np.radians(e[:, 1:].ravel())
+    y0 = np.stack([np.full(er.size, h), np.sin(er), np.cos(er), np.zeros(er.size)])
+    c0 = np.exp(_ln_n_at(medium, h))[rows] * (radius + h) * y0[2]
+    col0 = np.zeros(er.size)
+    if graze is not None:  # the grazing rays go first
+        rows = np.concatenate([np.arange(n_lam), rows])
+        y0, c0 = np.concatenate([graze.y, y0], axis=1), np.concatenate([graze.c0, c0])
+        col0 = np.concatenate([2.0 * graze.column_m, col0])
+    run = _integrate(_Profile(medium), y0, rows, radius, column0_m=col0, step_scale=step_scale)
+    if graze is not None:
+        horizon = _horizon_from(medium, graze, run)
+    alt, _ = _exits(medium, run, rows, c0)
+    air = np.where(run.fate == ESCAPED, run.column_m / _column(medium, rows), np.nan)
     a = np.empty_like(e)
     m = np.empty_like(e)
-    a[:, 0], m[:, 0] = hz.true_altitude_deg, hz.airmass
-    a[:, 1:] = ends.true_altitude_deg.reshape(n_lam, rays - 1)
-    m[:, 1:] = ends.airmass.reshape(n_lam, rays - 1)
+    skip = 0 if graze is None else n_lam
+    a[:, 0], m[:, 0] = horizon.true_altitude_deg, horizon.airmass
+    a[:, 1:] = alt[skip:].reshape(n_lam, rays - 1)
+    m[:, 1:] = air[skip:].reshape(n_lam, rays - 1)
     folded = np.any(np.diff(a, axis=1) <= 0, axis=1)
-    return TransferCurve(medium.wavelength_nm, e, a, m, hz, folded)
+    return TransferCurve(medium.wavelength_nm, e, a, m, horizon, folded)
+
+
+def transfer_curves(media: Sequence[Medium], **options) -> list[TransferCurve]:
+    """Transfer curves of several media (e.g. trial lapse rates) in one integration.
+
+    The media must share the height grid, kinks, Earth radius and eye height (as
+    :func:`analyse.atmosphere.linear_layer_atmosphere` gives for one layer top and eye
+    height). ``options`` are those of :func:`transfer_curve`, except ``horizon``. Where
+    any medium has a duct below the eye, every horizon is found by search.
+    """
+    curve = transfer_curve(_stack_media(media), **options)
+    out, start = [], 0
+    for med in media:
+        k = slice(start, start + med.ln_n.shape[0])
+        start = k.stop
+        hz = curve.horizon
+        hz = SeaHorizon(hz.apparent_elevation_deg[k], hz.true_altitude_deg[k],
+                        hz.airmass[k], hz.method)
+        out.append(TransferCurve(curve.wavelength_nm[k], curve.apparent_elevation_deg[k],
+                                 curve.true_altitude_deg[k], curve.airmass[k], hz,
+                                 curve.folded[k]))
+    return out
 
 
 def refraction_table(medium: Medium, apparent_altitude_deg, *, step_scale: float = 1.0):

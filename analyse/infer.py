@@ -40,7 +40,8 @@ from analyse.predict import (
 )
 from analyse.sun import sun_track
 
-__all__ = ["SCAN_K_PER_KM", "Inference", "infer_lapse_rate", "regime"]
+__all__ = ["SCAN_K_PER_KM", "Inference", "ModelCurves", "infer_lapse_rate", "model_curves",
+           "regime"]
 
 SCAN_K_PER_KM = np.array([-120.0, -95.0, -75.0, -58.0, -44.0, -32.0, -22.0, -13.0, -5.0, 1.0,
                           6.5, 12.0, 18.0, 26.0, 36.0, 50.0, 70.0])
@@ -80,6 +81,7 @@ class _Trial:
     detection_fraction: dict[str, float]
     flux_scale: dict[str, float]
     model: SunsetModel | None = field(default=None, repr=False)
+    scale_correction: float = 0.0  # fitted relative plate-scale correction
 
 
 @dataclass(frozen=True)
@@ -409,7 +411,7 @@ def infer_lapse_rate(measurement, obs, *, bands=None, progress: bool = False) ->
     pred = _predict(model, data, sun)
     chi2, delta, eps = _chi2(pred.values, pred.rate, y, err, is_h, clock_prior, scale_prior)
     best = _Trial(best_g, chi2, delta, int(y.size), pred.last, pred.detection_fraction,
-                  pred.flux_scale, model)
+                  pred.flux_scale, model, eps)
     dof = max(int(y.size) - 1, 1)
     notes = [f"fitted {int(np.count_nonzero(is_h))} limb-height bins and "
              f"{int(np.count_nonzero(~is_h))} last-light times; common time offset "
@@ -457,3 +459,41 @@ def _summarise(g, chi, best: _Trial, dof: int, prior: float, notes: list[str]) -
     return Inference(True, status, message, float(value), float(err), i1, i2, g, chi, chi_min,
                      dof, best.delta_s, prior, regime(best.gamma if status == "constrained"
                                                       else np.nan), best, tuple(notes))
+
+
+@dataclass(frozen=True)
+class ModelCurves:
+    """The best-fitting model on the recording's time axis, for figures.
+
+    Times are the camera's (the fitted clock offset applied); heights are in pixels of
+    the recording (the fitted plate-scale correction applied); fluxes in the recording's
+    linear units (the fitted flux scale applied).
+    """
+
+    t_unix_s: np.ndarray  # (T,)
+    apex_height_px: dict[str, np.ndarray]  # (T,) per channel, NaN below the horizon
+    flux: dict[str, np.ndarray]  # (T,) per channel
+    last_light_unix_s: dict[str, float]  # model last light on the camera's clock
+
+
+def model_curves(inference: Inference, measurement, obs, *, step_s: float = 0.1) -> ModelCurves | None:
+    """Sample the best model over the recording for plotting (None if nothing was fitted)."""
+    best = inference.best
+    if best.model is None:
+        return None
+    model = best.model
+    t = measurement.table.t_unix_s
+    grid = np.arange(float(t.min()), float(t.max()) + step_s, step_s)
+    sun = _SunInterp(obs.site.latitude_deg, obs.site.longitude_deg, obs.site.eye_height_m,
+                     float(t.min()) - 600.0, float(t.max()) + 900.0)
+    e_hor = float(np.mean(model.curve.horizon.apparent_elevation_deg[model.channels["g"].node_index]))
+    a_c = sun.altitude(grid - best.delta_s)
+    scale = measurement.observables.plate_scale_arcsec_per_px
+    heights, fluxes = {}, {}
+    for c in model.channels:
+        h = (limb_elevation_deg(model, c, a_c + sun.sd / 3600.0) - e_hor) * 3600.0
+        heights[c] = h * (1.0 + best.scale_correction) / scale
+        s = best.flux_scale.get(c, np.nan)
+        fluxes[c] = s * visible_fraction(model, c, a_c, sun.sd)
+    last = {c: v + best.delta_s for c, v in best.last.items()}
+    return ModelCurves(grid, heights, fluxes, last)

@@ -58,7 +58,7 @@ __all__ = [
     "disc_area_below_left", "sun_patch", "render_radiance", "iter_frames", "encode_srgb",
 ]  # fmt: skip
 
-ROW_OVERSAMPLE = 4  # sub-rows per pixel row that follow the transfer curve's bends
+ROW_OVERSAMPLE = 2  # sub-rows per pixel row that follow the transfer curve's bends
 STILL_TIME_STEP_S = 1e-3  # s; frame times of stills are whole milliseconds (EXIF, csv)
 VIDEO_TIME_BASE_HZ = 90000  # ticks/s; video pts unit (MPEG system clock)
 _CHUNK_ELEMENTS = 1_500_000  # array elements per block of the disc computation
@@ -265,21 +265,28 @@ def disc_area_below_left(x: np.ndarray, y: np.ndarray, fs_x: np.ndarray | None =
     Inside the chord ``|x| < c = sqrt(1 - y^2)`` a column holds ``y + sqrt(1 - x^2)`` of
     disc below ``y``; outside it the whole column (``y > 0``) or nothing (``y < 0``).
     Integrating column by column with ``F(x) = integral_-1^x sqrt(1 - t^2) dt`` gives
-    ``H = y (x_c + c) + F(x_c) - F(-c)`` plus, for ``y >= 0``, ``2 F(min(x, -c))`` and
-    ``2 (F(max(x, c)) - F(c))``, with ``x_c`` = ``x`` clipped to ``[-c, c]``.
-    ``fs_x`` may pass ``F(x)`` when ``x`` is shared by many ``y``.
+    ``H = y (x_c + c) + F(x_c) - F(-c)`` plus, for ``y >= 0``,
+    ``2 (F(min(x, -c)) + F(max(x, c)) - F(c))``, with ``x_c`` = ``x`` clipped to
+    ``[-c, c]``; ``F`` increases, so ``F(clip(x)) = clip(F(x))``. ``fs_x`` may pass
+    ``F(x)`` when ``x`` is shared by many ``y``.
     """
-    x = np.clip(x, -1.0, 1.0)
-    y = np.clip(y, -1.0, 1.0)
+    x = np.minimum(np.maximum(x, -1.0), 1.0)
+    y = np.minimum(np.maximum(y, -1.0), 1.0)
     fs_x = _fs(x) if fs_x is None else fs_x
     c = np.sqrt(1.0 - y * y)
     fs_c = _fs(c)
     fs_mc = np.pi / 2 - fs_c
-    left, right = x < -c, x > c
-    fs_xc = np.where(left, fs_mc, np.where(right, fs_c, fs_x))
-    middle = y * (np.clip(x, -c, c) + c) + fs_xc - fs_mc
-    outer = 2.0 * (np.where(left, fs_x, fs_mc) + np.where(right, fs_x - fs_c, 0.0))
-    return middle + np.where(y >= 0.0, outer, 0.0)
+    h = np.minimum(np.maximum(x, -c), c)
+    h += c
+    h *= y
+    h += np.minimum(np.maximum(fs_x, fs_mc), fs_c)
+    h -= fs_mc
+    outer = np.minimum(fs_x, fs_mc)
+    outer += np.maximum(fs_x, fs_c)
+    outer -= fs_c
+    outer *= 2.0 * (y >= 0.0)
+    h += outer
+    return h
 
 
 def sun_patch(ch: ChannelCurves, v_low_px: np.ndarray, u_edges_px: np.ndarray,
@@ -331,22 +338,22 @@ def _sun_rows(ch, v_low, u_edges, a_centre, u_centre, sd, plate, e_origin, overs
     da = np.diff(a, axis=-1)
     cum = np.stack([np.interp(ec[k], ch.cum_elevation_deg[k], ch.cum_transmission_deg[k])
                     for k in range(ch.weight.size)])
-    # slope * mean transmission = (integral of T over the sub-row) / da
-    flux_per_da = np.where(good & (da != 0), np.diff(cum, axis=-1) / np.where(da != 0, da, 1.0),
-                           0.0)
-    coef = ch.weight[:, None, None] * flux_per_da * (sd / plate) ** 2  # (K, R, S)
+    # (integral of T over the sub-row) / da = slope de/da x mean transmission
+    ok = good & (da != 0)
+    coef = np.where(ok, np.diff(cum, axis=-1) / np.where(ok, da, 1.0), 0.0) * (sd / plate) ** 2
     x = (u_edges[None, :] - u_centre[:, None]) * (plate / sd)  # (R, X+1)
-    h = disc_area_below_left(x[None, :, None, :], y[..., None],
-                             _fs(np.clip(x, -1.0, 1.0))[None, :, None, :])
-    box = h[..., 1:, 1:] - h[..., 1:, :-1] - h[..., :-1, 1:] + h[..., :-1, :-1]
+    fs_x = _fs(np.minimum(np.maximum(x, -1.0), 1.0))[None, :, None, :]
+    h = disc_area_below_left(x[None, :, None, :], y[..., None], fs_x)
+    col = h[..., 1:] - h[..., :-1]  # (K, R, S+1, X): column strips below each boundary
+    uniform = np.einsum("krs,krsx->krx", coef, col[:, :, 1:] - col[:, :, :-1])
+    # Limb darkening: mu at the middle of the part of the row's column inside the disc.
     xm = 0.5 * (x[:, 1:] + x[:, :-1])
-    q = np.sqrt(np.maximum(1.0 - xm * xm, 0.0))[None, :, None, :]
-    y1, y2 = y[..., :-1, None], y[..., 1:, None]
-    lo = np.clip(np.minimum(y1, y2), -q, q)
-    hi = np.clip(np.maximum(y1, y2), -q, q)
-    mu = np.sqrt(np.maximum(q * q - (0.5 * (lo + hi)) ** 2, 0.0))
-    u = ch.limb_u[:, None, None, None]
-    return np.einsum("krs,krsx->rx", coef, box * ((1.0 - u) + u * mu))
+    q = np.sqrt(np.maximum(1.0 - xm * xm, 0.0))[None]
+    y_lo, y_hi = y.min(axis=-1)[..., None], y.max(axis=-1)[..., None]
+    mid = 0.5 * (np.minimum(np.maximum(y_lo, -q), q) + np.minimum(np.maximum(y_hi, -q), q))
+    mu = np.sqrt(np.maximum(q * q - mid * mid, 0.0))
+    u = ch.limb_u[:, None, None]
+    return np.einsum("k,krx->rx", ch.weight, uniform * ((1.0 - u) + u * mu))
 
 
 def _altitudes(ch: ChannelCurves, e: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -360,3 +367,131 @@ def _altitudes(ch: ChannelCurves, e: np.ndarray) -> tuple[np.ndarray, np.ndarray
         above = ec[k] > ek[-1]
         a[k][above] = ak[-1] + (ec[k][above] - ek[-1]) * ch.top_slope[k]
     return ec, a
+
+
+# --- one frame ----------------------------------------------------------------------
+
+
+def render_radiance(sim: Simulation, index: int, shake_px: tuple[float, float] = (0.0, 0.0),
+                    glitter_rng: np.random.Generator | None = None) -> np.ndarray:
+    """The scene of frame ``index`` as the lens forms it, before blur and the sensor.
+
+    Parameters
+    ----------
+    sim : Simulation
+    index : int
+        Frame number.
+    shake_px : (float, float)
+        Displacement of the whole image (dx right, dy down) [px].
+    glitter_rng : numpy Generator, optional
+        Draws the sparkle of the sun glitter; without it the glitter is smooth.
+
+    Returns
+    -------
+    (H, W, 3) ndarray of float32
+        Radiance per channel (R, G, B), 1 = the disc's centre outside the atmosphere.
+    """
+    cam = sim.scenario.camera
+    tr = sim.track
+    a_c, sd = float(tr.altitude_deg[index]), float(tr.semidiameter_arcsec[index])
+    d_az = (float(tr.azimuth_deg[index]) - sim.camera_azimuth_deg + 180.0) % 360.0 - 180.0
+    scale = np.cos(np.radians(a_c)) * 3600.0 / cam.plate_scale_arcsec_per_px
+    u_sun = d_az * scale
+    frame = _background(sim, index, u_sun, shake_px, glitter_rng)
+    rates = (float(tr.altitude_rate_deg_per_s[index]),
+             float(tr.azimuth_rate_deg_per_s[index]) * scale)
+    _add_sun(frame, sim, a_c, sd, u_sun, rates, shake_px)
+    return frame
+
+
+def _rotation(cam) -> tuple[float, float, float, float]:
+    rho = np.radians(cam.roll_deg)
+    return float(np.cos(rho)), float(np.sin(rho)), (cam.width_px - 1) / 2.0, cam.horizon_row()
+
+
+def _unrolled_shift(cam, dx: float, dy: float) -> tuple[float, float]:
+    """An image displacement (dx right, dy down) in horizon coordinates (du, dv) [px]."""
+    cos, sin, _, _ = _rotation(cam)
+    return dx * cos - dy * sin, -dx * sin - dy * cos
+
+
+def _add_sun(frame, sim, a_c, sd, u_sun, rates, shake) -> None:
+    """Draw the solar disc of every channel into ``frame`` (in place)."""
+    cam = sim.scenario.camera
+    cos, sin, xc, y_h = _rotation(cam)
+    plate = cam.plate_scale_arcsec_per_px
+    rs = cam.rolling_shutter_s
+    shifts = [_unrolled_shift(cam, shake[0] + cam.offset_px(ch.name)[0],
+                              shake[1] + cam.offset_px(ch.name)[1]) for ch in sim.channels]
+    margin = 2.0 + max(max(abs(du), abs(dv)) for du, dv in shifts)
+    drift = abs(rates[0]) * rs
+    v_range = _visible_rows_px(sim, a_c - drift - sd / 3600, a_c + sd / 3600)
+    if v_range is None:
+        return
+    half = _half_width_px(sim, a_c, sd) + abs(rates[1]) * rs
+    rows = np.arange(np.floor(y_h - v_range[1] - margin), np.ceil(y_h - v_range[0] + margin) + 1)
+    cols = np.arange(np.floor(xc + u_sun - half - margin), np.ceil(xc + u_sun + half + margin) + 1)
+    if cos == 1.0:
+        rows = rows[(rows >= 0) & (rows < cam.height_px)]
+        cols = cols[(cols >= 0) & (cols < cam.width_px)]
+    if rows.size == 0 or cols.size == 0:
+        return
+    y_img = y_h - u_sun * sin - (y_h - rows) * cos  # image row of each patch row
+    dt = rs * np.clip(y_img, 0, cam.height_px - 1) / max(cam.height_px - 1, 1)
+    patch = np.empty((rows.size, cols.size, 3), np.float32)
+    for c, ch in enumerate(sim.channels):
+        du, dv = shifts[c]
+        patch[..., c] = sun_patch(ch, y_h - rows - 0.5 - dv, cols - xc - 0.5 - du
+                                  if False else np.append(cols, cols[-1] + 1) - xc - 0.5 - du,
+                                  a_c + rates[0] * dt, u_sun + rates[1] * dt, sd, plate,
+                                  sim.horizon_elevation_deg)
+    _place(frame, patch, int(rows[0]), int(cols[0]), cos, sin, xc, y_h)
+
+
+def _place(frame, patch, row0, col0, cos, sin, xc, y_h) -> None:
+    """Add a patch of the unrolled image into the frame, turned by the roll."""
+    if cos == 1.0:
+        frame[row0:row0 + patch.shape[0], col0:col0 + patch.shape[1]] += patch
+        return
+    # unrolled (x', y') -> image: x = xc + (x'-xc) cos - (y_h-y') sin, y = y_h - (x'-xc) sin - (y_h-y') cos
+    m = np.array([[cos, sin, xc + (col0 - xc) * cos - (y_h - row0) * sin],
+                  [-sin, cos, y_h - (col0 - xc) * sin - (y_h - row0) * cos]])
+    h, w = patch.shape[:2]
+    corners = m @ np.array([[0, w, 0, w], [0, 0, h, h], [1, 1, 1, 1]], float)
+    x0, y0 = (int(max(np.floor(corners[i].min()) - 1, 0)) for i in (0, 1))
+    x1 = int(min(np.ceil(corners[0].max()) + 2, frame.shape[1]))
+    y1 = int(min(np.ceil(corners[1].max()) + 2, frame.shape[0]))
+    if x1 <= x0 or y1 <= y0:
+        return
+    m[:, 2] -= (x0, y0)
+    frame[y0:y1, x0:x1] += cv2.warpAffine(patch, m, (x1 - x0, y1 - y0), flags=cv2.INTER_LINEAR,
+                                          borderMode=cv2.BORDER_CONSTANT, borderValue=0)
+
+
+def _visible_rows_px(sim, a_low_deg, a_high_deg):
+    """Elevations [px above the origin] of the rays that see true altitudes in a range."""
+    curve = sim.prediction.model.curve
+    e, a = curve.apparent_elevation_deg, curve.true_altitude_deg
+    with np.errstate(invalid="ignore"):
+        lo_p, hi_p = np.fmin(a[:, :-1], a[:, 1:]), np.fmax(a[:, :-1], a[:, 1:])
+        hit = (hi_p >= a_low_deg) & (lo_p <= a_high_deg)
+    tops = [e[:, 1:][hit].max()] if hit.any() else []
+    lows = [e[:, :-1][hit].min()] if hit.any() else []
+    beyond = a[:, -1] < a_high_deg  # the disc reaches above the traced rays
+    if beyond.any():
+        slope = np.array([c.top_slope for c in sim.channels]).ravel()
+        tops.append(float(np.max(e[beyond, -1] + (a_high_deg - a[beyond, -1]) / slope[beyond])))
+        lows.append(float(np.min(np.where(a[beyond, -1] < a_low_deg, e[beyond, -1] + (
+            a_low_deg - a[beyond, -1]) / slope[beyond], e[beyond, -1]))))
+    if not tops:
+        return None
+    to_px = 3600.0 / sim.scenario.camera.plate_scale_arcsec_per_px
+    return ((min(lows) - sim.horizon_elevation_deg) * to_px,
+            (max(tops) - sim.horizon_elevation_deg) * to_px)
+
+
+def _half_width_px(sim, a_c, sd) -> float:
+    """Half the widest visible chord of the disc [px]."""
+    lowest = float(np.nanmin(sim.prediction.model.curve.true_altitude_deg))
+    gap = max(lowest - a_c, 0.0) * 3600.0
+    return float(np.sqrt(max(sd * sd - gap * gap, 0.0))) / sim.scenario.camera.plate_scale_arcsec_per_px

@@ -1,0 +1,64 @@
+"""Sequence observables on synthetic per-frame series with known truth (invented data)."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from analyse.measure import disc_geometry, exposure_changes, last_light
+
+
+def fading_series(t_end=7.03, rate_px_s=2.0, fps=10.0, noise=1.0, seed=2):
+    """A limb segment of height h = rate (t_end - t): flux ~ h^1.5 (circular segment)."""
+    t = np.arange(0.0, 10.0, 1.0 / fps)
+    h = np.clip((t_end - t) * rate_px_s, 0.0, None)
+    flux = 10.0 * h**1.5 + np.random.default_rng(seed).normal(0.0, noise, t.size)
+    err = np.full(t.size, noise)
+    return t, flux > 5.0 * err, flux, err
+
+
+def test_last_light_is_interpolated_between_frames():
+    t, vis, flux, err = fading_series()
+    ll = last_light(t, vis, flux, err)
+    true = 7.03 - (5.0 / 10.0) ** (2.0 / 3.0) / 2.0  # where 10 h^1.5 = 5 sigma
+    assert ll.method == "fading fit"
+    assert t[ll.last_visible_index] <= ll.t_unix_s <= t[ll.first_dark_index]
+    assert abs(ll.t_unix_s - true) < 0.1  # within one frame interval (issue's requirement)
+    assert 0.0 < ll.err_s <= 0.1 / np.sqrt(12.0) + 1e-12
+
+
+def test_a_one_frame_blip_after_dark_is_not_last_light():
+    t, vis, flux, err = fading_series()
+    first_dark = int(np.flatnonzero(vis)[-1]) + 1
+    vis2, flux2 = vis.copy(), flux.copy()
+    blip = first_dark + 10
+    vis2[blip], flux2[blip] = True, 50.0
+    assert last_light(t, vis2, flux2, err).first_dark_index == first_dark
+
+
+def test_never_visible_and_still_visible_are_reported():
+    t = np.arange(10.0)
+    assert last_light(t, np.zeros(10, bool), np.zeros(10), np.ones(10)).method == "never visible"
+    assert "still visible" in last_light(t, np.ones(10, bool), np.ones(10) * 9, np.ones(10)).method
+
+
+def test_disc_geometry_recovers_radius_and_flattening():
+    rx, f = 300.0, 0.85
+    h = np.linspace(5.0, 250.0, 40)
+    w = 2 * rx * np.sqrt(2 * h / (f * rx) - h**2 / (f * rx) ** 2)
+    w += np.random.default_rng(1).normal(0.0, 0.3, h.size)
+    g = disc_geometry(h, w)
+    assert abs(g.rx_px - rx) < 0.5  # 0.5 px: the issue's disc-width tolerance
+    assert abs(g.flattening - f) < 0.005
+    assert g.rx_err_px < 0.5 and g.flattening_err < 0.01
+
+
+def test_disc_geometry_refuses_too_little_data():
+    g = disc_geometry([1.0, 2.0], [10.0, 12.0])
+    assert np.isnan(g.rx_px) and "too few" in g.message
+
+
+def test_exposure_jumps_are_found_but_smooth_dimming_is_not():
+    sky = 0.5 * np.exp(-np.arange(100) / 200.0)
+    assert exposure_changes(sky).size == 0
+    sky[60:] *= 2.0
+    assert list(exposure_changes(sky)) == [60]

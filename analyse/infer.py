@@ -375,6 +375,8 @@ class _Emulator:
 
 def infer_lapse_rate(measurement, obs, *, bands=None, progress: bool = False) -> Inference:
     """Fit GAMMA to a sunset's measured observables; see the module docstring."""
+    if not np.isfinite(measurement.observables.plate_scale_arcsec_per_px):
+        return _failed("no plate scale: limb heights cannot be turned into angles")
     data = _prepare(measurement)
     if not {"r", "g"} <= set(data.last):
         return _failed("red or green last light not measured: nothing to fit")

@@ -60,6 +60,7 @@ class FrameTable:
     horizon_row_px, horizon_row_err_px : horizon height at the reference column [px]
     roll_deg, roll_err_deg : horizon angle, counter-clockwise positive [deg]
     apex_height_px, apex_height_err_px : per channel, upper limb above the horizon [px]
+    apex_x_px : per channel, column of the apex in the frame [px]
     width_px, height_px : per channel, extent of the sun above the horizon [px]
     visible : per channel, bool
     flux, flux_err : per channel, sky-subtracted linear flux above the horizon
@@ -77,6 +78,7 @@ class FrameTable:
     roll_err_deg: np.ndarray
     apex_height_px: dict[str, np.ndarray]
     apex_height_err_px: dict[str, np.ndarray]
+    apex_x_px: dict[str, np.ndarray]
     width_px: dict[str, np.ndarray]
     height_px: dict[str, np.ndarray]
     visible: dict[str, np.ndarray]

@@ -118,8 +118,8 @@ class _Columns:
             row[k] = getattr(line, k) if row["found"] else np.nan
         for c in CHANNELS:
             lm = limbs.get(c) if limbs else None
-            for k in ("apex_height_px", "apex_height_err_px", "width_px", "height_px",
-                      "flux", "flux_err", "sky_level"):
+            for k in ("apex_height_px", "apex_height_err_px", "apex_x_px", "width_px",
+                      "height_px", "flux", "flux_err", "sky_level"):
                 row[f"{k}:{c}"] = getattr(lm, k) if lm is not None else np.nan
             row[f"visible:{c}"] = bool(lm.visible) if lm is not None else False
             row[f"saturated:{c}"] = bool(lm.saturated) if lm is not None else False
@@ -131,7 +131,7 @@ class _Columns:
         return FrameTable(
             col("t"), col("found", bool), col("row_px"), col("row_err_px"), col("roll_deg"),
             col("roll_err_deg"), per("apex_height_px"), per("apex_height_err_px"),
-            per("width_px"), per("height_px"), per("visible", bool), per("flux"),
+            per("apex_x_px"), per("width_px"), per("height_px"), per("visible", bool), per("flux"),
             per("flux_err"), per("sky_level"), per("saturated", bool),
             tuple(r["flags"] for r in self.rows), tuple(r["source"] for r in self.rows))
 
@@ -212,6 +212,9 @@ def measure_folder(folder: Path, obs: Observation, *, progress: bool = True) -> 
                 cols.add(info, None, {}, ["unreadable"])
                 continue
             line, sun, limbs, flags, box = _measure_frame(img, prior, sun_prior)
+            if box is not None:  # apex columns back in frame coordinates
+                limbs = {c: dataclasses.replace(lm, apex_x_px=lm.apex_x_px + box[2])
+                         for c, lm in limbs.items()}
             cols.add(info, line, limbs, flags)
             if line.found:
                 prior = line
@@ -226,9 +229,7 @@ def measure_folder(folder: Path, obs: Observation, *, progress: bool = True) -> 
             visible = any(lm.visible for lm in limbs.values())
             after_dark = 0 if visible else after_dark + 1
             if box is not None and after_dark <= 3:
-                shifted = {c: dataclasses.replace(lm, apex_x_px=lm.apex_x_px + box[2])
-                           for c, lm in limbs.items()}
-                s = _strip_crop(img, line, shifted, info)
+                s = _strip_crop(img, line, limbs, info)
                 if s is not None:
                     strip.append(s)
     table = cols.table()
@@ -246,9 +247,9 @@ def _plate_scale(obs: Observation, calib: dict | None, geometry: DiscGeometry,
     elif np.isfinite(measured):
         scale, source = float(measured), "disc width and ephemeris semidiameter"
     else:
-        raise InputError("no plate scale: give [camera] plate_scale_arcsec_per_px or a "
-                         f"calibration; the disc's width could not be measured "
-                         f"({geometry.message})", obs.path)
+        notes.append("no plate scale: give [camera] plate_scale_arcsec_per_px or a "
+                     f"calibration; the disc's width could not be measured ({geometry.message})")
+        return float("nan"), "unknown", notes
     if source != "disc width and ephemeris semidiameter" and np.isfinite(measured):
         rel = measured / scale - 1.0
         if abs(rel) > 0.03:

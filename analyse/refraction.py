@@ -336,7 +336,8 @@ def _cell_gradients(medium: Medium, knodes: np.ndarray):
 def _step_length(z, c, d2z, layer, prof, radius, scale):
     """Arc length of the next step [m] for each ray (see the module docstring)."""
     dz = (STEP_FRACTION * scale) * (z + STEP_HEIGHT_M)
-    ds = np.minimum(dz / np.maximum(np.abs(c), 1e-9), np.sqrt((2.0 * radius) * dz))
+    bend = np.maximum(np.abs(d2z), 1.0 / radius)
+    ds = np.minimum(dz / np.maximum(np.abs(c), 1e-9), np.sqrt(2.0 * dz / bend))
     np.minimum(ds, MAX_STEP_M * scale, out=ds)
     # Shorten to land just beyond the layer's bound: the smallest positive root of
     # z + c s + d2z s^2 / 2 = aim, for the bound above and the one below.

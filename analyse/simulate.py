@@ -441,8 +441,8 @@ def _add_sun(frame, sim, a_c, sd, u_sun, rates, shake) -> None:
     patch = np.empty((rows.size, cols.size, 3), np.float32)
     for c, ch in enumerate(sim.channels):
         du, dv = shifts[c]
-        patch[..., c] = sun_patch(ch, y_h - rows - 0.5 - dv, cols - xc - 0.5 - du
-                                  if False else np.append(cols, cols[-1] + 1) - xc - 0.5 - du,
+        patch[..., c] = sun_patch(ch, y_h - rows - 0.5 - dv,
+                                  np.append(cols, cols[-1] + 1) - xc - 0.5 - du,
                                   a_c + rates[0] * dt, u_sun + rates[1] * dt, sd, plate,
                                   sim.horizon_elevation_deg)
     _place(frame, patch, int(rows[0]), int(cols[0]), cos, sin, xc, y_h)
@@ -479,7 +479,7 @@ def _visible_rows_px(sim, a_low_deg, a_high_deg):
     lows = [e[:, :-1][hit].min()] if hit.any() else []
     beyond = a[:, -1] < a_high_deg  # the disc reaches above the traced rays
     if beyond.any():
-        slope = np.array([c.top_slope for c in sim.channels]).ravel()
+        slope = (a[:, -1] - a[:, -2]) / (e[:, -1] - e[:, -2])
         tops.append(float(np.max(e[beyond, -1] + (a_high_deg - a[beyond, -1]) / slope[beyond])))
         lows.append(float(np.min(np.where(a[beyond, -1] < a_low_deg, e[beyond, -1] + (
             a_low_deg - a[beyond, -1]) / slope[beyond], e[beyond, -1]))))
@@ -495,3 +495,136 @@ def _half_width_px(sim, a_c, sd) -> float:
     lowest = float(np.nanmin(sim.prediction.model.curve.true_altitude_deg))
     gap = max(lowest - a_c, 0.0) * 3600.0
     return float(np.sqrt(max(sd * sd - gap * gap, 0.0))) / sim.scenario.camera.plate_scale_arcsec_per_px
+
+
+def _background(sim, index, u_sun, shake, rng) -> np.ndarray:
+    """Twilight sky above the horizon, darker sea below, and the sun glitter on it."""
+    cam, scene = sim.scenario.camera, sim.scenario.scene
+    cos, sin, xc, y_h = _rotation(cam)
+    deg = cam.plate_scale_arcsec_per_px / 3600.0
+    xs = (np.arange(cam.width_px, dtype=np.float32) - np.float32(xc + shake[0]))[None, :]
+    ys = (np.arange(cam.height_px, dtype=np.float32) - np.float32(y_h + shake[1]))[:, None]
+    v = -xs * sin - ys * cos  # (H, W) px above the green horizon
+    du = (xs * cos - ys * sin - u_sun) * deg  # degrees from the Sun's azimuth
+    h = v * deg
+    level = scene.sky_level * sim.centre_signal["g"]
+    aureole = np.exp(-(du * du + h * h) / (2 * AUREOLE_DEG**2))
+    sky = level * (0.5 + 0.5 * np.exp(-np.maximum(h, 0) / SKY_FALLOFF_DEG)) * (1 + 2 * aureole)
+    sea = (level * scene.sea_level) * (0.6 + 0.4 * np.exp(np.minimum(h, 0) / SEA_FALLOFF_DEG)) * (
+        1 + aureole)
+    glitter = _glitter(sim, index, du, h, rng)
+    out = np.empty((cam.height_px, cam.width_px, 3), np.float32)
+    e_h = sim.prediction.model.curve.horizon.apparent_elevation_deg
+    for c, ch in enumerate(sim.channels):
+        ox, oy = cam.offset_px(ch.name)
+        d_v = -ox * sin - oy * cos  # the channel's image is displaced by its offset
+        v_hz = (float(np.mean(e_h[sim.prediction.model.channels[ch.name].node_index]))
+                - sim.horizon_elevation_deg) / deg
+        sky_part = np.clip(v - d_v - v_hz + 0.5, 0.0, 1.0)
+        out[..., c] = SKY_COLOUR[ch.name] * (sky_part * sky + (1 - sky_part) * sea)
+        if glitter is not None:
+            out[..., c] += (1 - sky_part) * glitter[c]
+    return out
+
+
+def _glitter(sim, index, du, h, rng):
+    """Sun glitter on the sea below the Sun, coloured and dimmed as the Sun's light."""
+    scene = sim.scenario.scene
+    if not scene.glitter or scene.glitter_level == 0:
+        return None
+    tr = sim.track
+    light = [float(visible_fraction(sim.prediction.model, ch.name, tr.altitude_deg[index],
+                                    tr.semidiameter_arcsec[index])[0]) * sim.centre_signal[ch.name]
+             for ch in sim.channels]
+    if max(light) <= 0:
+        return None
+    depth = np.maximum(-h, 0)
+    width = GLITTER_WIDTH_DEG + 2 * depth
+    shape = np.exp(-depth / GLITTER_DEPTH_DEG - du * du / (2 * width * width)) * (h < 0)
+    if rng is not None:
+        shape *= rng.standard_exponential(shape.shape, dtype=np.float32) ** 2 / 2
+    return [scene.glitter_level * lit * shape for lit in light]
+
+
+# --- the camera ---------------------------------------------------------------------
+
+
+def iter_frames(sim: Simulation) -> Iterator[tuple[FrameRecord, np.ndarray]]:
+    """Render, blur, expose, add noise and encode every frame, one at a time.
+
+    Yields
+    ------
+    record : FrameRecord
+    image : (H, W, 3) ndarray of uint8 (uint16 for TIFF)
+        sRGB-encoded R, G, B.
+    """
+    cam, out = sim.scenario.camera, sim.scenario.output
+    streams = np.random.SeedSequence([out.seed, 2]).spawn(3)
+    shake_rng, noise_rng, glitter_rng = (np.random.default_rng(s) for s in streams)
+    gain = sim.locked_gain_e
+    times = sim.frame_times_unix_s
+    for i, t in enumerate(times):
+        shake = (tuple(float(v) for v in shake_rng.normal(0.0, cam.shake_px, 2))
+                 if cam.shake_px else (0.0, 0.0))
+        radiance = render_radiance(sim, i, shake, glitter_rng)
+        if cam.psf_sigma_px > 0:
+            radiance = cv2.GaussianBlur(radiance, (0, 0), cam.psf_sigma_px,
+                                        borderType=cv2.BORDER_REFLECT)
+        if cam.exposure == "auto":
+            target = cam.exposure_level * cam.full_well_e / max(float(radiance.max()), 1e-30)
+            if i:
+                follow = 1.0 - np.exp(-(t - times[i - 1]) / cam.auto_exposure_lag_s)
+                target = gain * (target / gain) ** follow
+            gain = min(target, cam.auto_exposure_max_gain * sim.locked_gain_e)
+        image = _sensor(radiance, gain, cam, noise_rng, sim.scenario.bit_depth)
+        record = FrameRecord(i, float(t), float(t) + sim.clock_error_s, float(gain),
+                             cam.exposure_time_s * gain / sim.locked_gain_e, shake)
+        yield record, image
+
+
+def _sensor(radiance, gain, cam, rng, bits) -> np.ndarray:
+    """Electrons, photon and read noise, full-well clipping, sRGB encoding."""
+    electrons = radiance * np.float32(gain)
+    noise = rng.standard_normal(electrons.shape, dtype=np.float32)
+    noise *= np.sqrt(electrons + np.float32(cam.read_noise_e**2))
+    electrons += noise
+    electrons *= np.float32(1.0 / cam.full_well_e)
+    return encode_srgb(electrons, bits)
+
+
+def encode_srgb(linear: np.ndarray, bits: int = 8) -> np.ndarray:
+    """Linear light -> sRGB code values (IEC 61966-2-1), clipped to 0..1 first.
+
+    Parameters
+    ----------
+    linear : ndarray
+        Linear values, 1 = full scale [-].
+    bits : {8, 16}
+
+    Returns
+    -------
+    ndarray of uint8 or uint16
+        ``round(sRGB(linear) (2^bits - 1))``, through a table on a linear grid of 2^16
+        (8 bit) or 2^20 (16 bit) steps, finer than one code at the dark end.
+
+    References
+    ----------
+    IEC 61966-2-1:1999, section 5.3 (encoding), via :func:`analyse.frames.linear_to_srgb`.
+    """
+    lut = _srgb_table(bits)
+    n = lut.size - 1
+    index = np.clip(linear, 0.0, 1.0) * np.float32(n) + np.float32(0.5)
+    return lut[index.astype(np.int32)]
+
+
+_TABLES: dict[int, np.ndarray] = {}
+
+
+def _srgb_table(bits: int) -> np.ndarray:
+    if bits not in (8, 16):
+        raise ValueError(f"bits must be 8 or 16, got {bits}")
+    if bits not in _TABLES:
+        n = 2**16 if bits == 8 else 2**20
+        codes = np.round(linear_to_srgb(np.linspace(0.0, 1.0, n)) * (2**bits - 1))
+        _TABLES[bits] = codes.astype(np.uint8 if bits == 8 else np.uint16)
+    return _TABLES[bits]

@@ -43,7 +43,7 @@ def synthetic_measurement(gamma, *, fps=10.0, scale=2.0, noise_px=0.15, seed=0):
         cols["vis"][c], cols["flux"][c], cols["ferr"][c] = vis, f, np.full(n, 2.0)
         cols["sky"][c], cols["sat"][c] = np.full(n, 0.1), np.zeros(n, bool)
     table = FrameTable(t, np.ones(n, bool), np.full(n, 100.0), np.full(n, 0.05), np.zeros(n),
-                       np.full(n, 0.01), cols["apex"], cols["err"], cols["nan"], cols["nan"],
+                       np.full(n, 0.01), cols["apex"], cols["err"], cols["nan"], cols["nan"], cols["nan"],
                        cols["vis"], cols["flux"], cols["ferr"], cols["sky"], cols["sat"],
                        tuple(() for _ in range(n)), tuple(str(i) for i in range(n)))
     geometry = DiscGeometry(np.nan, np.nan, np.nan, np.nan, 0, "")

@@ -39,15 +39,20 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.ndimage import gaussian_filter1d
+from scipy.special import ndtr
 
-__all__ = ["HorizonLine", "find_horizon", "horizon_colour_offsets", "column_edges"]
+from analyse.frames import linear_to_srgb
+
+__all__ = ["HorizonLine", "find_horizon", "horizon_colour_offsets", "column_edges",
+           "robust_line", "encoding_bias"]
 
 COLUMN_TARGET = 480  # column blocks across a frame; 1920 px -> blocks of 4 (brief: "every 4th")
 EDGE_SMOOTH_PX = 1.5  # derivative-of-Gaussian scale [px] (common practice, no source)
 EDGE_MIN_SNR = 6.0  # a block's edge must stand this many noise sigmas above its column
 EDGE_MAX_SIGMA_PX = 4.0  # wider edges are not a sea horizon (haze bands, sky gradients) [px]
 PRIOR_BAND_PX = 12.0  # search band around the previous frame's line [px]
-COLOUR_BAND_PX = 8.0  # search band for the r/b edges around the green line [px]
+COLOUR_BAND_PX = 6.0  # search band for the r/b edges around the green line [px]
+CENTROID_HALF_PX = 5  # half-window of the encoded-gradient centroid [px]
 RANSAC_TRIALS = 200  # random pairs tried
 RANSAC_INLIER_PX = 2.0  # pair-model inlier distance [px]
 TUKEY_C = 4.685  # biweight tuning constant (95 % efficiency for Gaussian data) [3]
@@ -293,9 +298,15 @@ def horizon_colour_offsets(image: np.ndarray, line: HorizonLine, *,
     """Vertical offset of the red and blue horizon edges from the green one.
 
     The lens's lateral colour displaces each channel's image; on a horizontal edge the
-    vertical part shows. Each channel's edge is located per column block as in
-    :func:`find_horizon`, within :data:`COLOUR_BAND_PX` of ``line``, and the per-block
-    differences from green are averaged robustly (Tukey biweight).
+    vertical part shows. Each channel's edge is located per column block, within
+    :data:`COLOUR_BAND_PX` of ``line``, as the centroid of its gradient over
+    +-:data:`CENTROID_HALF_PX`, computed on the sRGB-encoded values: JPEG and video
+    store colour as full-resolution luma plus subsampled chroma, and smoothing the
+    chroma changes neither the integral nor the centroid of an encoded channel's
+    gradient, whereas it moves the peak. The centroid of an encoded edge differs from
+    the linear edge by an amount set by the channel's two levels and the edge width
+    (:func:`encoding_bias`), which is removed. Per-block differences from green are
+    averaged robustly (Tukey biweight).
 
     Parameters
     ----------
@@ -321,22 +332,77 @@ def horizon_colour_offsets(image: np.ndarray, line: HorizonLine, *,
     h, w = image.shape[:2]
     step = max(1, w // COLUMN_TARGET)
     xs = np.arange(w // step) * step + 0.5 * (step - 1)
-    r0, r1, lo, hi = _search_rows(h, xs, line, COLOUR_BAND_PX)
+    r0, r1, lo, hi = _search_rows(h, xs, line, COLOUR_BAND_PX + CENTROID_HALF_PX)
     if r1 <= r0:
         return nan
-    edges = {}
-    for c in ("r", "g", "b"):
-        strip, xs = _blocks(image[..., _CHANNELS[c]], step, r0, r1)
-        edges[c] = column_edges(strip, lo, hi)[0]
+    keep = np.ones(xs.size, bool)
     if exclude_x is not None:
-        edges["g"] = np.where((xs >= min(exclude_x) - 0.5 * step)
-                              & (xs <= max(exclude_x) + 0.5 * step), np.nan, edges["g"])
+        keep = (xs < min(exclude_x) - 0.5 * step) | (xs > max(exclude_x) + 0.5 * step)
+    centre = line.row_at(xs) - r0
+    loc = {c: _encoded_edge(image[..., _CHANNELS[c]], step, r0, r1, lo, hi, keep, centre)
+           for c in ("r", "g", "b")}
     out = {}
     for c in ("r", "b"):
-        d = edges[c] - edges["g"]
+        d = loc[c] - loc["g"]
         d = d[np.isfinite(d)]
         out[c] = _tukey_mean(d) if d.size >= MIN_COLUMNS else float("nan")
     return out
+
+
+def _encoded_edge(plane: np.ndarray, step: int, r0: int, r1: int, lo: np.ndarray,
+                  hi: np.ndarray, keep: np.ndarray, centre: np.ndarray) -> np.ndarray:
+    """Per-block edge row (strip coordinates) from the encoded gradient's centroid,
+    corrected by :func:`encoding_bias`; NaN where there is no clean edge.
+
+    The window is centred on ``centre`` (strip rows) moved by the channel's median
+    peak offset from it, the same for every block: a window following each block's own
+    peak would follow its noise and compression artefacts.
+    """
+    strip, _ = _blocks(plane, step, r0, r1)
+    row, _, sig, _, pol = column_edges(strip, lo, hi)
+    out = np.full(row.shape, np.nan)
+    good = keep & np.isfinite(row)
+    if good.sum() < MIN_COLUMNS:
+        return out
+    enc, _ = _blocks(linear_to_srgb(np.clip(plane[r0:r1], 0.0, None)), step, 0, r1 - r0)
+    half = int(CENTROID_HALF_PX)
+    k = np.round(centre + np.median(row[good] - centre[good])).astype(int)
+    cols = np.flatnonzero(keep & (k - half - 1 >= 0) & (k + half + 1 < strip.shape[0]))
+    if cols.size < MIN_COLUMNS:
+        return out
+    k = k[cols]
+    offs = np.arange(-half, half)[:, None]
+    grad = -pol * (enc[k + offs + 1, cols] - enc[k + offs, cols])
+    out[cols] = np.sum((k + offs + 0.5) * grad, axis=0) / np.sum(grad, axis=0)
+    above = float(np.median(strip[k - half - 1, cols] if pol < 0 else strip[k + half + 1, cols]))
+    below = float(np.median(strip[k + half + 1, cols] if pol < 0 else strip[k - half - 1, cols]))
+    return out - encoding_bias(above, below, float(np.nanmedian(sig[good])), half)
+
+
+def encoding_bias(level_above: float, level_below: float, sigma_px: float,
+                  half_px: float) -> float:
+    """Centroid of the sRGB-encoded gradient of a Gaussian-blurred step, minus the step's
+    position [px, y down].
+
+    Parameters
+    ----------
+    level_above, level_below : float
+        Linear levels above and below the step [-].
+    sigma_px : float
+        Gaussian width of the step [px].
+    half_px : float
+        Half-width of the centroid window, centred on the step [px].
+
+    References
+    ----------
+    IEC 61966-2-1:1999 (sRGB encoding), through :func:`analyse.frames.linear_to_srgb`.
+    """
+    if not (np.isfinite(sigma_px) and sigma_px > 0):
+        return 0.0
+    y = np.linspace(-half_px, half_px, 2001)
+    prof = level_below + (level_above - level_below) * ndtr(-y / sigma_px)
+    grad = -np.gradient(np.asarray(linear_to_srgb(np.clip(prof, 0.0, None))), y)
+    return float(np.sum(y * grad) / np.sum(grad))
 
 
 def _tukey_mean(d: np.ndarray) -> float:

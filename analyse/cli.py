@@ -80,6 +80,13 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("folder", type=Path, metavar="FOLDER")
     _add_common(p, writes=True)
 
+    p = sub.add_parser("verify", help="check a claimed green-flash sighting",
+                       description="Check whether a photo or clip of a green segment is "
+                       "consistent with the physics of the setting sun; writes verdict.json "
+                       "and verdict.html.")
+    p.add_argument("folder", type=Path, metavar="FOLDER")
+    _add_common(p, writes=True)
+
     p = sub.add_parser("simulate", help="render a synthetic sunset folder from a scenario",
                        description="Render the frames a camera would record of a sunset "
                        "through a model atmosphere (format: docs/scenario.md).")
@@ -252,6 +259,46 @@ def _cmd_report(args: argparse.Namespace) -> int:
     return 0
 
 
+def _site_words(obs) -> str:
+    site = obs.site
+    where = (f"{abs(site.latitude_deg):.3f} {'N' if site.latitude_deg >= 0 else 'S'}, "
+             f"{abs(site.longitude_deg):.3f} {'E' if site.longitude_deg >= 0 else 'W'}")
+    return f"{site.name} ({where})" if site.name else where
+
+
+def _cmd_verify(args: argparse.Namespace) -> int:
+    from analyse.observation import format_utc, read_observation
+    from analyse.outfolder import atomic_folder, check_output, default_output
+    from analyse.pipeline import measure_folder
+    from analyse.verdict_page import write_verdict_html
+    from analyse.verify import GAMMA_RANGE_K_PER_KM, verify_measurement
+
+    folder = _sunset_folder(args.folder)
+    toml = folder / "observation.toml"
+    if not toml.is_file():
+        raise InputError("observation.toml is missing: verify needs the site and the clock "
+                         "(FOLDER-FORMAT.md)", folder)
+    obs = read_observation(toml)
+    out = args.out if args.out is not None else default_output(folder, "verify")
+    out = check_output(out, input_folder=folder, force=args.force)
+    meas = measure_folder(folder, obs, progress=not args.quiet)
+    verdict = verify_measurement(meas, obs)
+    t = meas.table.t_unix_s
+    with atomic_folder(out, force=args.force) as tmp:
+        (tmp / "verdict.json").write_text(json.dumps(verdict.as_json(), indent=1) + "\n",
+                                          encoding="utf-8")
+        write_verdict_html(tmp / "verdict.html", verdict, where=_site_words(obs),
+                           folder=str(folder), frames=len(t),
+                           when=f"{format_utc(float(t[0]))} to {format_utc(float(t[-1]))}",
+                           gamma=GAMMA_RANGE_K_PER_KM)
+    print(f"{folder}: {verdict.verdict}")
+    for c in verdict.checks:
+        mark = "ok " if c.passed else ("?  " if c.passed is None or not c.confident else "NO ")
+        print(f"  {mark} {c.name}: {c.reason}")
+    print(f"written to {out}")
+    return 0
+
+
 def _cmd_simulate(args: argparse.Namespace) -> int:
     from analyse.writers import run_simulate
 
@@ -265,6 +312,7 @@ COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {
     "refraction": _cmd_refraction,
     "simulate": _cmd_simulate,
     "report": _cmd_report,
+    "verify": _cmd_verify,
 }
 
 

@@ -87,6 +87,16 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("folder", type=Path, metavar="FOLDER")
     _add_common(p, writes=True)
 
+    p = sub.add_parser("calibrate", help="calibrate a camera's colour channels and geometry",
+                       description="Measure plate scale, roll, lateral colour offsets and "
+                       "effective wavelengths of the colour channels from a recording of the "
+                       "Sun (ideally higher in the sky); writes calibration.json.")
+    p.add_argument("folder", type=Path, metavar="FOLDER")
+    p.add_argument("--sensitivities", type=Path, default=None, metavar="CSV",
+                   help="channel sensitivities, CSV with columns wavelength_nm,r,g,b "
+                   "(default: Gaussian bands R 600, G 530, B 460 +- 30 nm)")
+    _add_common(p, writes=True)
+
     p = sub.add_parser("simulate", help="render a synthetic sunset folder from a scenario",
                        description="Render the frames a camera would record of a sunset "
                        "through a model atmosphere (format: docs/scenario.md).")
@@ -235,7 +245,7 @@ def _cmd_report(args: argparse.Namespace) -> int:
     from analyse.observation import read_observation
     from analyse.outfolder import atomic_folder, check_output, default_output
     from analyse.infer import infer_lapse_rate
-    from analyse.pipeline import measure_folder
+    from analyse.pipeline import bands_for, measure_folder
     from analyse.results import result_document, write_frames_ecsv, write_result_json
 
     folder = _sunset_folder(args.folder)
@@ -247,7 +257,8 @@ def _cmd_report(args: argparse.Namespace) -> int:
     out = args.out if args.out is not None else default_output(folder, "report")
     out = check_output(out, input_folder=folder, force=args.force)
     measurement = measure_folder(folder, obs, progress=not args.quiet)
-    inference = infer_lapse_rate(measurement, obs, progress=not args.quiet)
+    bands = bands_for(measurement.calibration, obs.camera.calibration)
+    inference = infer_lapse_rate(measurement, obs, bands=bands, progress=not args.quiet)
     doc = result_document(measurement, inference, layer_top_m=obs.model.layer_top_m)
     with atomic_folder(out, force=args.force) as tmp:
         write_result_json(doc, tmp / "result.json")
@@ -299,6 +310,18 @@ def _cmd_verify(args: argparse.Namespace) -> int:
     return 0
 
 
+def _cmd_calibrate(args: argparse.Namespace) -> int:
+    from calibration.run import run_calibrate
+
+    folder = _sunset_folder(args.folder)
+    result = run_calibrate(folder, out=args.out, force=args.force, quiet=args.quiet,
+                           sensitivity_csv=args.sensitivities)
+    scale = result.get("plate_scale_arcsec_per_px")
+    print(f"{folder}: plate scale {scale:.4f} arcsec/px, roll {result.get('roll_deg', 0):+.3f} "
+          f"deg; calibration written to {result.get('path', '?')}")
+    return 0
+
+
 def _cmd_simulate(args: argparse.Namespace) -> int:
     from analyse.writers import run_simulate
 
@@ -313,6 +336,7 @@ COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {
     "simulate": _cmd_simulate,
     "report": _cmd_report,
     "verify": _cmd_verify,
+    "calibrate": _cmd_calibrate,
 }
 
 

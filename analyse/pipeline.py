@@ -32,7 +32,7 @@ from analyse.measure import (
 from analyse.observation import Observation
 from analyse.sun import sun_track
 
-__all__ = ["Measurement", "StripFrame", "measure_folder", "read_calibration"]
+__all__ = ["Measurement", "StripFrame", "measure_folder", "read_calibration", "bands_for"]
 
 _STRIP_KEEP = 48  # crops of the final visible frames kept for the report
 _CROP_HALF_WIDTH_PX = 90
@@ -86,6 +86,22 @@ def read_calibration(path: Path | None) -> dict | None:
             for v in offsets.values()):
         raise InputError('channel_offset_px must map "r"/"b" to [dx, dy] pairs of numbers', path)
     return data
+
+
+def bands_for(calib: dict | None, calib_path: Path | None):
+    """The colour channels' bands: the calibration's sensitivity CSV, else the defaults."""
+    from calibration.bands import bands_from_csv, default_bands
+
+    csv = (calib or {}).get("sensitivity_csv")
+    if csv:
+        p = Path(csv)
+        if not p.is_absolute() and calib_path is not None:
+            p = Path(calib_path).parent / p
+        if not p.is_file():
+            raise InputError(f"sensitivity_csv {csv} named by the calibration does not exist",
+                             calib_path)
+        return bands_from_csv(p)
+    return default_bands()
 
 
 def _shift_line(line: hz.HorizonLine, x0: float, y0: float) -> hz.HorizonLine:

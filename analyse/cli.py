@@ -242,13 +242,13 @@ def _sunset_folder(folder: Path) -> Path:
 
 
 def _cmd_report(args: argparse.Namespace) -> int:
+    folder = _sunset_folder(args.folder)  # before the slow imports
     from analyse.observation import read_observation
     from analyse.outfolder import atomic_folder, check_output, default_output
     from analyse.infer import infer_lapse_rate
     from analyse.pipeline import bands_for, measure_folder
     from analyse.results import result_document, write_frames_ecsv, write_result_json
 
-    folder = _sunset_folder(args.folder)
     toml = folder / "observation.toml"
     if not toml.is_file():
         raise InputError("observation.toml is missing: report needs the site and air "
@@ -278,13 +278,13 @@ def _site_words(obs) -> str:
 
 
 def _cmd_verify(args: argparse.Namespace) -> int:
+    folder = _sunset_folder(args.folder)  # before the slow imports
     from analyse.observation import format_utc, read_observation
     from analyse.outfolder import atomic_folder, check_output, default_output
     from analyse.pipeline import measure_folder
     from analyse.verdict_page import write_verdict_html
     from analyse.verify import GAMMA_RANGE_K_PER_KM, verify_measurement
 
-    folder = _sunset_folder(args.folder)
     toml = folder / "observation.toml"
     if not toml.is_file():
         raise InputError("observation.toml is missing: verify needs the site and the clock "

@@ -245,7 +245,8 @@ def _cmd_report(args: argparse.Namespace) -> int:
     folder = _sunset_folder(args.folder)  # before the slow imports
     from analyse.observation import read_observation
     from analyse.outfolder import atomic_folder, check_output, default_output
-    from analyse.infer import infer_lapse_rate
+    from analyse.infer import infer_lapse_rate, model_curves
+    from analyse.report import write_report_html
     from analyse.pipeline import bands_for, measure_folder
     from analyse.results import result_document, write_frames_ecsv, write_result_json
 
@@ -260,9 +261,11 @@ def _cmd_report(args: argparse.Namespace) -> int:
     bands = bands_for(measurement.calibration, obs.camera.calibration)
     inference = infer_lapse_rate(measurement, obs, bands=bands, progress=not args.quiet)
     doc = result_document(measurement, inference, layer_top_m=obs.model.layer_top_m)
+    curves = model_curves(inference, measurement, obs)
     with atomic_folder(out, force=args.force) as tmp:
         write_result_json(doc, tmp / "result.json")
         write_frames_ecsv(measurement, tmp / "frames.ecsv")
+        write_report_html(tmp / "report.html", measurement, inference, obs, curves=curves)
     ob = doc["observables"]
     green = ob["green_duration_s"]
     print(f"{folder}: green segment "

@@ -497,5 +497,5 @@ def model_curves(inference: Inference, measurement, obs, *, step_s: float = 0.1)
         heights[c] = h * (1.0 + best.scale_correction) / scale
         s = best.flux_scale.get(c, np.nan)
         fluxes[c] = s * visible_fraction(model, c, a_c, sun.sd)
-    last = {c: v + best.delta_s for c, v in best.last.items()}
+    last = {c: v + best.delta_s for c, v in best.last_model.items()}
     return ModelCurves(grid, heights, fluxes, last)

@@ -97,3 +97,16 @@ def test_two_separate_minima_are_reported_as_such():
     res = infer._summarise(g, chi, best, 19, 1.0, [])
     assert res.status == "multiple minima"
     assert np.isnan(res.lapse_rate_K_per_km)
+
+
+def test_model_curves_follow_the_measured_limb():
+    meas, obs = synthetic_measurement(6.5, seed=3)
+    res = infer.infer_lapse_rate(meas, obs)
+    curves = infer.model_curves(res, meas, obs)
+    assert curves is not None and set(curves.apex_height_px) == {"r", "g", "b"}
+    t, h = meas.table.t_unix_s, meas.table.apex_height_px["g"]
+    model = np.interp(t, curves.t_unix_s, curves.apex_height_px["g"])
+    ok = np.isfinite(h) & np.isfinite(model)
+    # The model passes through the measured heights within the 0.15 px frame noise.
+    assert np.sqrt(np.mean((h[ok] - model[ok]) ** 2)) < 0.3
+    assert abs(curves.last_light_unix_s["g"] - meas.observables.last["g"].t_unix_s) < 0.1

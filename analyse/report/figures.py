@@ -153,7 +153,7 @@ def light_curves_png(t_s: np.ndarray, flux: Mapping[str, np.ndarray], *,
     model_t_s, model_flux, model_last_light_s : optional
         The fitted model on the same axes.
     """
-    fig, ax = _new(7.5, 3.9)
+    fig, ax = _new(7.5, 4.4)
     ax = ax[0, 0]
     with _style():
         lows = []
@@ -183,7 +183,7 @@ def light_curves_png(t_s: np.ndarray, flux: Mapping[str, np.ndarray], *,
         ax.plot([], [], "k", lw=1.0, label="last light, measured")
         if model_last_light_s:
             ax.plot([], [], "k", lw=1.0, ls=":", label="last light, model")
-        ax.legend(ncol=3, loc="lower left")
+        fig.legend(loc="outside lower center", ncol=4)
         ax.set_xlabel(f"time [s] relative to {time_label}")
         ax.set_ylabel("visible flux above the horizon\n[linear camera units]")
     return _png(fig)
@@ -200,47 +200,66 @@ def _display(crops: Sequence[np.ndarray]) -> list[np.ndarray]:
             for c in lin]
 
 
+def _mosaic(shown: Sequence[np.ndarray], columns: int, zoom: int, gap: int):
+    """Panels upscaled by ``zoom`` (nearest neighbour) on a white sheet; panel origins."""
+    h, w = shown[0].shape[:2]
+    rows = int(np.ceil(len(shown) / columns))
+    sheet = np.ones((rows * (h * zoom + gap) - gap, columns * (w * zoom + gap) - gap, 3))
+    origins = []
+    for k, img in enumerate(shown):
+        r, c = divmod(k, columns)
+        y0, x0 = r * (h * zoom + gap), c * (w * zoom + gap)
+        big = np.repeat(np.repeat(img[:h, :w], zoom, axis=0), zoom, axis=1)
+        sheet[y0:y0 + big.shape[0], x0:x0 + big.shape[1]] = big
+        origins.append((y0, x0))
+    return sheet, origins
+
+
 def strip_png(crops: Sequence[np.ndarray], labels: Sequence[str],
               horizon_row_px: Sequence[float], apex_height_px: Sequence[Mapping[str, float]],
-              *, columns: int = 3) -> bytes:
+              *, columns: int = 3, zoom: int = 2) -> bytes:
     """The last frames as enlarged crops, with the horizon and each limb apex ticked.
 
     Parameters
     ----------
     crops : sequence of (h, w, 3) ndarray
-        Registered crops in linear RGB [camera units], the limb apex at the centre column.
+        Registered crops of equal shape in linear RGB [camera units], the limb apex at
+        the centre column.
     labels : sequence of str
         One label per crop (its time).
     horizon_row_px : sequence of float
         Row of the horizon in each crop [px, from the top].
     apex_height_px : sequence of dict
         Per crop and channel, limb apex above the horizon [px] (NaN: not measured).
-    columns : int
-        Panels per row.
+    columns, zoom : int
+        Panels per row; enlargement (each pixel drawn as zoom x zoom).
     """
     if not crops:
         raise ValueError("strip_png needs at least one crop")
     shown = _display(crops)
-    rows = int(np.ceil(len(shown) / columns))
     h, w = shown[0].shape[:2]
-    panel_w = 9.0 / columns
-    fig, ax = _new(9.0, rows * panel_w * h / w + 0.35 * rows + 0.2, rows, columns)
-    for k, a in enumerate(ax.ravel()):
-        a.set_axis_off()
-        if k >= len(shown):
-            continue
-        img = shown[k]
-        hh, ww = img.shape[:2]
-        a.imshow(img, interpolation="nearest", extent=(-0.5, ww - 0.5, hh - 0.5, -0.5))
-        y0 = horizon_row_px[k]
-        tick = 0.07 * ww
-        for x in ((-0.5, -0.5 + tick), (ww - 0.5 - tick, ww - 0.5)):
-            a.plot(x, (y0, y0), color="white", lw=1.4, solid_capstyle="butt")
+    gap = 26
+    sheet, origins = _mosaic(shown, columns, zoom, gap)
+    width_in = sheet.shape[1] / DPI
+    fig = Figure(figsize=(width_in, (sheet.shape[0] + gap) / DPI), dpi=DPI)
+    FigureCanvasAgg(fig)
+    ax = fig.add_axes((0.0, 0.0, 1.0, sheet.shape[0] / (sheet.shape[0] + gap)))
+    ax.set_axis_off()
+    ax.imshow(sheet, interpolation="nearest", extent=(-0.5, sheet.shape[1] - 0.5,
+                                                      sheet.shape[0] - 0.5, -0.5))
+    tick = 0.07 * w * zoom
+    for k, (y0, x0) in enumerate(origins):
+        right = x0 + w * zoom - 0.5
+        yh = y0 + (horizon_row_px[k] + 0.5) * zoom - 0.5
+        for xs in ((x0 - 0.5, x0 - 0.5 + tick), (right - tick, right)):
+            ax.plot(xs, (yh, yh), color="white", lw=1.4, solid_capstyle="butt")
         for c, hgt in apex_height_px[k].items():
             if np.isfinite(hgt) and c in _TICK_COLOURS:
-                a.plot((ww - 0.5 - 1.6 * tick, ww - 0.5), (y0 - hgt, y0 - hgt),
-                       color=_TICK_COLOURS[c], lw=1.4, solid_capstyle="butt")
-        a.set_title(labels[k], fontsize=8.5)
+                ax.plot((right - 1.6 * tick, right), (yh - hgt * zoom,) * 2,
+                        color=_TICK_COLOURS[c], lw=1.4, solid_capstyle="butt")
+        ax.text(x0 + 0.5 * w * zoom, y0 - 4, labels[k], ha="center", va="bottom", fontsize=8.5)
+    ax.set_xlim(-0.5, sheet.shape[1] - 0.5)
+    ax.set_ylim(sheet.shape[0] - 0.5, -gap)
     return _png(fig)
 
 
@@ -265,7 +284,7 @@ def chi2_profile_png(gamma_K_per_km: np.ndarray, chi2: np.ndarray, *, best_K_per
     marks : dict of float
         Named reference lapse rates drawn as faint vertical lines [K/km].
     """
-    fig, ax = _new(7.5, 3.6)
+    fig, ax = _new(7.5, 4.0)
     ax = ax[0, 0]
     with _style():
         d = chi2 - np.nanmin(chi2)
@@ -273,7 +292,7 @@ def chi2_profile_png(gamma_K_per_km: np.ndarray, chi2: np.ndarray, *, best_K_per
         for lev, span, name, alpha in ((level_1sigma, interval_1sigma, "1 sigma", 0.22),
                                        (level_2sigma, interval_2sigma, "2 sigma", 0.10)):
             ax.axhline(lev, color="#555555", lw=0.8, ls="--")
-            ax.annotate(name, (gamma_K_per_km[0], lev), xytext=(2, 2),
+            ax.annotate(name, (0.0, lev), xycoords=("axes fraction", "data"), xytext=(3, 2),
                         textcoords="offset points", fontsize=7.5, color="#555555")
             if np.all(np.isfinite(span)):
                 ax.axvspan(*span, color="#3b6ea5", alpha=alpha, lw=0,
@@ -282,20 +301,33 @@ def chi2_profile_png(gamma_K_per_km: np.ndarray, chi2: np.ndarray, *, best_K_per
             ax.axvline(best_K_per_km, color="#3b6ea5", lw=1.4, ls="-" if constrained else "--",
                        label=f"{'best' if constrained else 'lowest (not a constrained value)'}"
                              f": {best_K_per_km:.1f} K/km")
+        lo, hi = _profile_xlim(gamma_K_per_km, constrained, interval_2sigma)
+        ax.set_xlim(lo, hi)
         for name, g in marks.items():
-            if gamma_K_per_km[0] <= g <= gamma_K_per_km[-1]:
+            if lo <= g <= hi:
                 ax.axvline(g, color="#999999", lw=0.7, ls=":")
                 ax.annotate(name, (g, 1.0), xycoords=("data", "axes fraction"), rotation=90,
                             va="top", ha="right", fontsize=7, color="#777777")
-        top = float(np.nanmax(d)) if np.any(np.isfinite(d)) else level_2sigma
+        inside = (gamma_K_per_km >= lo) & (gamma_K_per_km <= hi) & np.isfinite(d)
+        top = float(np.max(d[inside])) if np.any(inside) else level_2sigma
         ax.set_ylim(0.0, max(1.6 * level_2sigma, min(1.05 * top, 8.0 * level_2sigma)))
         ax.set_xlabel("lapse rate GAMMA = -dT/dz of the near-surface layer [K/km]")
         ax.set_ylabel("chi-square - minimum")
-        ax.legend(loc="upper center", fontsize=7.5)
+        fig.legend(loc="outside lower center", ncol=2, fontsize=7.5)
     return _png(fig)
 
 
-def temperature_profile_png(height_m: np.ndarray, temperature_C: np.ndarray, *, label: str,
+def _profile_xlim(g: np.ndarray, constrained: bool, interval_2sigma) -> tuple[float, float]:
+    """The whole scan, or around a constrained 2-sigma interval (3 widths, >= 5 K/km each side)."""
+    lo2, hi2 = interval_2sigma
+    if not constrained or not np.all(np.isfinite(interval_2sigma)):
+        return float(g[0]), float(g[-1])
+    w = max(hi2 - lo2, 5.0)
+    return max(float(g[0]), lo2 - 1.5 * w), min(float(g[-1]), hi2 + 1.5 * w)
+
+
+def temperature_profile_png(height_m: np.ndarray, temperature_C: np.ndarray | None, *,
+                            label: str,
                             eye_height_m: float, layer_top_m: float,
                             lower_C: np.ndarray | None = None,
                             upper_C: np.ndarray | None = None, band_label: str = "",
@@ -307,8 +339,8 @@ def temperature_profile_png(height_m: np.ndarray, temperature_C: np.ndarray, *, 
     ----------
     height_m : (H,) ndarray
         Heights above the sea [m].
-    temperature_C : (H,) ndarray
-        The fitted (or lowest-chi-square) profile [deg C].
+    temperature_C : (H,) ndarray or None
+        The fitted profile [deg C]; None when no single value is fitted.
     label : str
         Legend entry of that profile.
     eye_height_m, layer_top_m : float
@@ -330,7 +362,8 @@ def temperature_profile_png(height_m: np.ndarray, temperature_C: np.ndarray, *, 
                              label=band_label)
         if reference_C is not None:
             ax.plot(reference_C, height_m, "--", color="#888888", lw=1.0, label=reference_label)
-        ax.plot(temperature_C, height_m, "-", color="#1f3f66", lw=1.6, label=label)
+        if temperature_C is not None:
+            ax.plot(temperature_C, height_m, "-", color="#1f3f66", lw=1.6, label=label)
         ax.axhline(eye_height_m, color="#aa6600", lw=1.0,
                    label=f"lens, {eye_height_m:g} m above the sea")
         if layer_top_m <= height_m[-1]:

@@ -235,7 +235,8 @@ def linear_layer_atmosphere(
     if not 0.0 < layer_top_m <= 2000.0:
         raise ValueError(f"layer_top_m must be within 0..2000 m, got {layer_top_m}")
     if not -1000.0 <= lapse_rate_K_per_km <= 1000.0:
-        raise ValueError(f"lapse_rate_K_per_km must be within -1000..1000, got {lapse_rate_K_per_km}")
+        raise ValueError("lapse_rate_K_per_km must be within -1000..1000, "
+                         f"got {lapse_rate_K_per_km}")
     gamma = lapse_rate_K_per_km / 1000.0
     # Shape relative to T(0) = 0, then shifted so that T(eye) is the lens temperature.
     shape_top = -gamma * layer_top_m
@@ -249,8 +250,8 @@ def linear_layer_atmosphere(
     kinks = np.concatenate([[layer_top_m], _ussa_kinks_m() + 0.0])
     return _build(nodes, temps, kinks, eye_height_m=eye_height_m, pressure_hPa=pressure_hPa,
                   relative_humidity=relative_humidity,
-                  description=f"linear layer {lapse_rate_K_per_km:+.1f} K/km to {layer_top_m:g} m, "
-                  "US Standard Atmosphere 1976 gradients above")
+                  description=f"linear layer {lapse_rate_K_per_km:+.1f} K/km to "
+                  f"{layer_top_m:g} m, US Standard Atmosphere 1976 gradients above")
 
 
 def tabulated_atmosphere(

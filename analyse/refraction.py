@@ -21,8 +21,10 @@ the true altitude ``90 deg - (zeta_vac + phi)`` relative to the observer's horiz
 
 Steps. All rays (any mix of elevations and wavelengths, or of atmospheres sharing a
 height grid) advance together as numpy arrays with the classical fourth-order
-Runge-Kutta method. A step changes the height by at most ``STEP_FRACTION`` of
-``z + STEP_HEIGHT_M`` and runs at most ``sqrt(2 R dz)`` along a horizontal ray. Where dT/dz
+Runge-Kutta method. A step may change the height by ``dz``, ``STEP_FRACTION`` of
+``z + STEP_HEIGHT_M``: its length is at most ``dz / |cos(zeta)|`` and, for a ray near its
+turning point, ``sqrt(2 dz / k)`` with ``k`` the larger of ``|d2z/ds2|`` and the Earth's
+curvature (a mirage's hot layer bends rays twenty times more than the Earth). Where dT/dz
 jumps (``kinks_m``: the layer top, the standard atmosphere's layer bases, a tabulated
 profile's nodes) ``d ln n/dz`` jumps too, and a Runge-Kutta step across a jump is only
 first-order accurate. So a step that would cross a kink is shortened to end just beyond
@@ -75,10 +77,11 @@ WGS84_F = 1.0 / 298.257223563  # WGS 84 flattening
 
 ESCAPED, SEA, TRAPPED = 0, 1, 2
 _STOPPED = 3  # internal: reached the requested stop height
-STEP_FRACTION = 0.1  # height change per step / (z + STEP_HEIGHT_M); set by the convergence
-STEP_HEIGHT_M = 1.0  # m; tests in tests/published/test_refraction.py
+STEP_FRACTION = 0.1  # height change per step / (z + STEP_HEIGHT_M): 0.001" accuracy, see the
+STEP_HEIGHT_M = 1.0  # m   convergence tests in tests/published/test_refraction.py
 MAX_STEP_M = 20000.0  # m, longest step along a ray
 _MAX_STEPS = 20000
+_SEARCH_TOP_DEG = 5.0  # deg, highest elevation the horizon search tries
 _MAX_PHI_RAD = 0.5  # a ray still inside the atmosphere after ~3000 km is trapped (a duct)
 _OVERSHOOT_M = 1e-5  # m: a shortened step aims this far beyond the kink
 _INSIDE_M = 1e-6  # m: within a step the profile is read at least this far inside its layer
@@ -172,7 +175,8 @@ def make_medium(atmosphere: Atmosphere, wavelength_nm, *,
     z = atmosphere.height_m
     ln_n = np.log1p(a[:, None] * d[None, :] + b[:, None] * w[None, :])
     grad = np.gradient(ln_n, z, axis=1)
-    # One-sided differences at kinks keep the gradient's jump sharp at the node.
+    # A kink's node gets the mean of its two one-sided slopes (the tracer itself reads
+    # each side's own slope there: see _cell_gradients).
     for zk in atmosphere.kinks_m:
         i = int(np.searchsorted(z, zk))
         if 0 < i < z.size - 1 and z[i] == zk:
@@ -281,10 +285,10 @@ class _Profile:
         Returns the cell index of each ray (for the density look-up).
         """
         z, c, s = y[0], y[1], y[2]
-        i = np.searchsorted(self.z_inner, np.clip(z, read_lo, read_hi), side="right")
+        i = self.z_inner.searchsorted(np.minimum(np.maximum(z, read_lo), read_hi), "right")
         j = i + base
-        w = np.take(self.ga, j)
-        w += z * np.take(self.gb, j)
+        w = self.ga.take(j)
+        w += z * self.gb.take(j)
         ir = 1.0 / (radius + z)
         w += ir
         w *= s
@@ -297,7 +301,7 @@ class _Profile:
 
     def density(self, z, i, dbase):
         j = i + dbase
-        return np.take(self.da, j) + z * np.take(self.db, j)
+        return self.da.take(j) + z * self.db.take(j)
 
 
 def _kink_nodes(z: np.ndarray, kinks_m: np.ndarray) -> np.ndarray:
@@ -341,7 +345,7 @@ def _step_length(z, c, d2z, layer, prof, radius, scale):
     np.minimum(ds, MAX_STEP_M * scale, out=ds)
     # Shorten to land just beyond the layer's bound: the smallest positive root of
     # z + c s + d2z s^2 / 2 = aim, for the bound above and the one below.
-    delta = np.stack([prof.aim_up[layer] - z, prof.aim_down[layer] - z])
+    delta = np.stack([prof.aim_up.take(layer) - z, prof.aim_down.take(layer) - z])
     with np.errstate(invalid="ignore", divide="ignore"):
         s = 2.0 * delta / (c + _BRANCH * np.sqrt(c * c + 2.0 * d2z * delta))
     s = np.where(s > 0.0, s, np.inf).min(axis=0)
@@ -370,49 +374,55 @@ def _integrate(prof: _Profile, y0: np.ndarray, rows: np.ndarray, radius: float, 
     dbase = base if prof.density_per_row else np.zeros_like(base)
     col = np.broadcast_to(np.asarray(column0_m, dtype=float), (n,)).copy()
     zmin = y[0].copy()
-    res = _Run(np.full((4, n), np.nan), np.full(n, TRAPPED, dtype=np.int8), np.full(n, np.nan),
+    run = _Run(np.full((4, n), np.nan), np.full(n, TRAPPED, dtype=np.int8), np.full(n, np.nan),
                np.full(n, np.nan), np.full((4, n), np.nan), 0)
     stop = np.inf if stop_m is None else stop_m
-    k = np.empty((4, 4, n))
-    steps = 0
-    while idx.size and steps < _MAX_STEPS:
-        steps += 1
-        m = idx.size
-        k1, k2, k3, k4 = k[0, :, :m], k[1, :, :m], k[2, :, :m], k[3, :, :m]
-        layer = np.searchsorted(prof.land, y[0], side="right")
-        lo, hi = prof.read_lo[layer], prof.read_hi[layer]
-        prof.rates(y, base, lo, hi, radius, k1)
-        ds = _step_length(y[0], y[1], k1[1], layer, prof, radius, step_scale)
-        half = 0.5 * ds
-        i2 = prof.rates(y[:3] + half * k1[:3], base, lo, hi, radius, k2)
-        z_mid = y[0] + half * k1[0]
-        prof.rates(y[:3] + half * k2[:3], base, lo, hi, radius, k3)
-        prof.rates(y[:3] + ds * k3[:3], base, lo, hi, radius, k4)
-        col += ds * prof.density(z_mid, i2, dbase)
+    scratch = np.empty((4, 4, n))
+    while idx.size and run.steps < _MAX_STEPS:
+        run.steps += 1
         z_old, c_old = y[0].copy(), y[1].copy()
-        k2 += k3
-        k2 *= 2.0
-        k2 += k1
-        k2 += k4
-        y += (ds / 6.0) * k2
+        ds = _rk4_step(prof, y, base, dbase, col, radius, step_scale, scratch[:, :, :idx.size])
         _lowest(zmin, z_old, c_old, y, ds)
         if record_m is not None:
-            hit = (z_old < record_m) & (y[0] >= record_m) & np.isnan(res.record[0, idx])
-            res.record[:, idx[hit]] = y[:, hit]
-        done = (zmin < 0.0) | (y[0] >= prof.top_m) | (y[0] >= stop) | (y[3] > _MAX_PHI_RAD)
+            hit = (z_old < record_m) & (y[0] >= record_m) & np.isnan(run.record[0, idx])
+            run.record[:, idx[hit]] = y[:, hit]
+        sea, out, stopped = zmin < 0.0, y[0] >= prof.top_m, y[0] >= stop
+        done = sea | out | stopped | ~(y[3] <= _MAX_PHI_RAD)  # NaN too: trapped
         if np.any(done):
             j = idx[done]
-            res.y[:, j], res.column_m[j], res.min_height_m[j] = y[:, done], col[done], zmin[done]
-            res.fate[j] = np.where(zmin[done] < 0.0, SEA, np.where(
-                y[0, done] >= prof.top_m, ESCAPED, np.where(y[0, done] >= stop, _STOPPED,
-                                                            TRAPPED)))
+            run.y[:, j], run.column_m[j], run.min_height_m[j] = y[:, done], col[done], zmin[done]
+            run.fate[j] = np.select([sea[done], out[done], stopped[done]],
+                                    [SEA, ESCAPED, _STOPPED], TRAPPED)
             keep = ~done
             idx, y, col, zmin = idx[keep], y[:, keep], col[keep], zmin[keep]
             base, dbase = base[keep], dbase[keep]
     if idx.size:  # out of steps: trapped
-        res.y[:, idx], res.column_m[idx], res.min_height_m[idx] = y, col, zmin
-    res.steps = steps
-    return res
+        run.y[:, idx], run.column_m[idx], run.min_height_m[idx] = y, col, zmin
+    return run
+
+
+def _rk4_step(prof: _Profile, y, base, dbase, col, radius, scale, k) -> np.ndarray:
+    """One classical Runge-Kutta step of every ray, in place; returns the step [m].
+
+    ``k`` (4, 4, N) is scratch space for the stages. The column ``col`` grows by the
+    density at the step's middle times its length.
+    """
+    k1, k2, k3, k4 = k
+    layer = prof.land.searchsorted(y[0], "right")
+    lo, hi = prof.read_lo.take(layer), prof.read_hi.take(layer)
+    prof.rates(y, base, lo, hi, radius, k1)
+    ds = _step_length(y[0], y[1], k1[1], layer, prof, radius, scale)
+    half = 0.5 * ds
+    i2 = prof.rates(y[:3] + half * k1[:3], base, lo, hi, radius, k2)
+    col += ds * prof.density(y[0] + half * k1[0], i2, dbase)
+    prof.rates(y[:3] + half * k2[:3], base, lo, hi, radius, k3)
+    prof.rates(y[:3] + ds * k3[:3], base, lo, hi, radius, k4)
+    k2 += k3
+    k2 *= 2.0
+    k2 += k1
+    k2 += k4
+    y += (ds / 6.0) * k2
+    return ds
 
 
 def _lowest(zmin, z_old, c_old, y, ds):
@@ -506,7 +516,8 @@ class SeaHorizon:
     method : str
         "tangent ray" (the ray grazing the sea, traced from its tangent point) or
         "search" (bisection for the lowest escaping ray, used where a duct below the
-        eye keeps grazing rays from reaching it).
+        eye keeps grazing rays from reaching it; "search" if any row needed it). NaN
+        where no ray below ``_SEARCH_TOP_DEG`` escapes.
     """
 
     apparent_elevation_deg: np.ndarray
@@ -524,106 +535,156 @@ class SeaHorizon:
         return 60.0 * (self.apparent_elevation_deg - self.true_altitude_deg)
 
 
-@dataclass(frozen=True)
-class _Graze:
-    """The grazing rays where they climb through the eye height (internal)."""
-
-    y: np.ndarray  # (4, L) state at the eye height
-    c0: np.ndarray  # (L,) Bouguer's invariant n(0) R
-    column_m: np.ndarray  # (L,) column from the tangent point to the eye [m]
-
-    @property
-    def elevation_deg(self) -> np.ndarray:
-        return -np.degrees(np.arctan2(self.y[1], self.y[2]))
-
-
-def _graze(medium: Medium, step_scale: float) -> _Graze | None:
-    """Trace the ray grazing the sea up to the eye (None where a duct prevents it).
-
-    Where ``m(z) = n (R + z)`` increases from the sea to the eye, the horizon ray grazes
-    the sea. By the symmetry of a spherically stratified medium it is traced from its
-    tangent point: where it climbs through the eye height it has the zenith angle the
-    observer sees mirrored, and beyond the eye it continues as the observer's ray would.
-    """
-    n_lam = medium.ln_n.shape[0]
-    rows = np.arange(n_lam)
-    if any(_duct_below(medium, k) for k in rows):
-        return None
-    radius, h = medium.earth_radius_m, medium.eye_height_m
-    y0 = np.zeros((4, n_lam))
-    y0[2] = 1.0
-    c0 = np.exp(medium.ln_n[:, 0]) * radius
-    if h <= 0.0:
-        return _Graze(y0, c0, np.zeros(n_lam))
-    run = _integrate(_Profile(medium, (h,)), y0, rows, radius, stop_m=h, step_scale=step_scale)
-    if np.any(run.fate != _STOPPED):
-        return None
-    return _Graze(run.y, c0, run.column_m)
-
-
-def _horizon_from(medium: Medium, graze: _Graze, run: _Run) -> SeaHorizon:
-    """The horizon from the grazing rays' continuation beyond the eye (first L rays).
-
-    The continuation started with twice the tangent-to-eye column: the light crosses
-    that air on both sides of the tangent point.
-    """
-    n_lam = graze.c0.size
-    rows = np.arange(n_lam)
-    sub = _Run(run.y[:, :n_lam], run.fate[:n_lam], run.column_m[:n_lam],
-               run.min_height_m[:n_lam], run.record[:, :n_lam], run.steps)
-    alt, _ = _exits(medium, sub, rows, graze.c0)
-    true = alt - np.degrees(graze.y[3])  # the eye's horizontal plane is tilted by phi_h
-    air = sub.column_m / _column(medium, rows)
-    return SeaHorizon(graze.elevation_deg, true, air, "tangent ray")
-
-
-def sea_horizon(medium: Medium, *, step_scale: float = 1.0) -> SeaHorizon:
-    """Find the sea-horizon ray for every wavelength of the medium.
-
-    Where ``m(z) = n (R + z)`` increases from the sea to the eye (no duct below the
-    eye), the horizon ray grazes the sea: it is traced from its tangent point (see
-    :func:`_graze`), so the dip is exact to the integration. Otherwise the lowest
-    escaping ray is searched for (``method == "search"``).
-    """
-    graze = _graze(medium, step_scale)
-    if graze is None:
-        return _horizon_by_search(medium, step_scale=step_scale)
-    run = _integrate(_Profile(medium), graze.y, np.arange(graze.c0.size),
-                     medium.earth_radius_m, column0_m=2.0 * graze.column_m,
-                     step_scale=step_scale)
-    return _horizon_from(medium, graze, run)
+def _rows(medium: Medium, rows: np.ndarray) -> Medium:
+    """The medium restricted to some of its rows."""
+    dens = medium.density if np.ndim(medium.density) == 1 else medium.density[rows]
+    col = medium.column if np.ndim(medium.column) == 0 else np.asarray(medium.column)[rows]
+    return Medium(medium.height_m, medium.ln_n[rows], medium.dln_n_dz[rows], dens, col,
+                  medium.wavelength_nm[rows], medium.kinks_m, medium.earth_radius_m,
+                  medium.eye_height_m)
 
 
 def _duct_below(medium: Medium, k: int) -> bool:
     """True where m(z) falls below m(0) somewhere between the sea and the eye.
 
-    At the eye height 0, true where m decreases from the sea upwards (a surface duct).
+    With the eye at the sea, true where m decreases from the sea upwards (a surface duct).
     """
     below = medium.height_m <= max(medium.eye_height_m, medium.height_m[1])
     m = medium.modified_index(k)[below]
     return bool(m.size > 1 and np.any(m[1:] <= m[0]))
 
 
+def _graze(medium: Medium, rows: np.ndarray, step_scale: float):
+    """Trace the rays grazing the sea up to the eye height.
+
+    Where ``m(z) = n (R + z)`` increases from the sea to the eye, the horizon ray grazes
+    the sea. By the symmetry of a spherically stratified medium it is traced from its
+    tangent point: where it climbs through the eye height it has the zenith angle the
+    observer sees mirrored, and beyond it continues as the observer's ray would. Returns
+    the state there (4, R), which rays got there (R,) and the column on the way [m] (R,).
+    """
+    y0 = np.zeros((4, rows.size))
+    y0[2] = 1.0
+    h = medium.eye_height_m
+    if h <= 0.0 or rows.size == 0:
+        return y0, np.ones(rows.size, dtype=bool), np.zeros(rows.size)
+    prof = _Profile(medium, (h,))
+    run = _integrate(prof, y0, rows, medium.earth_radius_m, stop_m=h, step_scale=step_scale)
+    # The last step ended a hair (_OVERSHOOT_M) above the eye: step back to it.
+    layer = np.searchsorted(prof.land, run.y[0], side="right")
+    rates = np.empty_like(run.y)
+    prof.rates(run.y, rows * prof.cells, prof.read_lo[layer], prof.read_hi[layer],
+               medium.earth_radius_m, rates)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        y = run.y - (run.y[0] - h) / run.y[1] * rates
+    y[0] = h
+    return y, run.fate == _STOPPED, run.column_m
+
+
+@dataclass
+class _Start:
+    """Horizons before the grazing rays' continuation is traced (internal)."""
+
+    searched: np.ndarray  # (L,) bool: horizon found by search
+    rows: np.ndarray  # (G,) rows whose horizon ray grazes the sea
+    y: np.ndarray  # (4, G) their state at the eye height
+    column_m: np.ndarray  # (G,) their column from the tangent point to the eye [m]
+    horizon: np.ndarray  # (3, L) elevation [deg], true altitude [deg], airmass
+
+
+def _start(medium: Medium, step_scale: float, horizon: SeaHorizon | None) -> _Start:
+    """Grazing rays up to the eye; a search where a duct (or a failed graze) needs it."""
+    n_lam = medium.ln_n.shape[0]
+    if horizon is not None:
+        known = np.stack([horizon.apparent_elevation_deg, horizon.true_altitude_deg,
+                          horizon.airmass])
+        return _Start(np.full(n_lam, horizon.method == "search"), np.zeros(0, dtype=np.intp),
+                      np.zeros((4, 0)), np.zeros(0), known)
+    searched = np.array([_duct_below(medium, k) for k in range(n_lam)])
+    rows = np.flatnonzero(~searched)
+    y, ok, col = _graze(medium, rows, step_scale)
+    searched[rows[~ok]] = True
+    start = _Start(searched, rows[ok], y[:, ok], col[ok], np.full((3, n_lam), np.nan))
+    start.horizon[0, start.rows] = -np.degrees(np.arctan2(start.y[1], start.y[2]))
+    if np.any(searched):
+        s_rows = np.flatnonzero(searched)
+        hz = _horizon_by_search(_rows(medium, s_rows), step_scale=step_scale)
+        start.horizon[:, s_rows] = hz.apparent_elevation_deg, hz.true_altitude_deg, hz.airmass
+    return start
+
+
+def _horizon_and_rays(medium: Medium, above_deg: np.ndarray, step_scale: float,
+                      horizon: SeaHorizon | None = None):
+    """The sea horizon of every row, and rays ``above_deg`` (L, M) above it, traced together.
+
+    Rows with a duct below the eye (or whose grazing ray does not reach the eye) get
+    their horizon by search. The grazing rays' continuation beyond the eye starts with
+    twice the tangent-to-eye column: the light crosses that air on both sides of the
+    tangent point. Returns the horizon, which rows were searched (L,), and the rays'
+    true altitudes [deg] and airmasses, each (L, M).
+    """
+    n_lam, m = above_deg.shape
+    radius, h = medium.earth_radius_m, medium.eye_height_m
+    st = _start(medium, step_scale, horizon)
+    e_rows = np.repeat(np.arange(n_lam), m)
+    er = np.radians((st.horizon[0][:, None] + above_deg).ravel())
+    y_e = np.stack([np.full(er.size, h), np.sin(er), np.cos(er), np.zeros(er.size)])
+    c0 = np.concatenate([np.exp(medium.ln_n[st.rows, 0]) * radius,
+                         np.exp(_ln_n_at(medium, h))[e_rows] * (radius + h) * y_e[2]])
+    rows = np.concatenate([st.rows, e_rows])
+    run = _integrate(_Profile(medium), np.concatenate([st.y, y_e], axis=1), rows, radius,
+                     column0_m=np.concatenate([2.0 * st.column_m, np.zeros(er.size)]),
+                     step_scale=step_scale)
+    alt, _ = _exits(medium, run, rows, c0)
+    air = np.where(run.fate == ESCAPED, run.column_m / _column(medium, rows), np.nan)
+    k = st.rows.size  # the eye's horizontal plane is tilted by phi_h against the tangent's
+    st.horizon[1:, st.rows] = alt[:k] - np.degrees(st.y[3]), air[:k]
+    if horizon is None:
+        horizon = SeaHorizon(*st.horizon, "search" if np.any(st.searched) else "tangent ray")
+    return horizon, st.searched, alt[k:].reshape(n_lam, m), air[k:].reshape(n_lam, m)
+
+
+def sea_horizon(medium: Medium, *, step_scale: float = 1.0) -> SeaHorizon:
+    """Find the sea-horizon ray for every wavelength of the medium.
+
+    Where ``m(z) = n (R + z)`` increases from the sea to the eye (no duct below the
+    eye), the horizon ray grazes the sea and is traced from its tangent point, so the dip
+    is that of the integration, without a search. Where any row has a duct below the
+    eye, that row's lowest escaping ray is searched for, and ``method`` is "search".
+    """
+    n_lam = medium.ln_n.shape[0]
+    return _horizon_and_rays(medium, np.zeros((n_lam, 0)), step_scale)[0]
+
+
 def _horizon_by_search(medium: Medium, *, step_scale: float = 1.0, rounds: int = 5,
                        rays: int = 16) -> SeaHorizon:
-    """Bisection, all wavelengths at once, for the lowest ray that escapes."""
+    """Bisection, all wavelengths at once, for the lowest ray that escapes.
+
+    The bracket runs from below twice the geometric dip to the lowest of a few
+    elevations up to ``_SEARCH_TOP_DEG`` whose ray escapes (NaN where none does).
+    """
     n_lam = medium.ln_n.shape[0]
     h = max(medium.eye_height_m, 0.0)
     geometric_dip = np.degrees(np.arccos(medium.earth_radius_m / (medium.earth_radius_m + h)))
-    lo = np.full(n_lam, -2.0 * geometric_dip - 0.05)
-    hi = np.full(n_lam, 0.05)
+    tops = np.array([-2.0 * geometric_dip - 0.05, 0.05, 0.2, 0.5, 1.0, 2.0, _SEARCH_TOP_DEG])
+    ends = trace_rays(medium, np.tile(tops[1:], n_lam),
+                      np.repeat(np.arange(n_lam), tops.size - 1), step_scale=step_scale)
+    ok = (ends.fate == ESCAPED).reshape(n_lam, tops.size - 1)
+    first = np.where(ok.any(axis=1), np.argmax(ok, axis=1) + 1, tops.size - 1)
+    sel = np.flatnonzero(ok.any(axis=1))  # rows with a bracket
+    lo, hi = tops[first - 1][sel], tops[first][sel]
     frac = np.linspace(0.0, 1.0, rays)
     for _ in range(rounds):
         e = lo[:, None] + (hi - lo)[:, None] * frac[None, :]
-        ends = trace_rays(medium, e.ravel(), np.repeat(np.arange(n_lam), rays),
-                          step_scale=step_scale)
-        ok = (ends.fate == ESCAPED).reshape(n_lam, rays)
-        first = np.argmax(ok, axis=1)
-        first = np.where(ok.any(axis=1), first, rays - 1)
-        hi = e[np.arange(n_lam), first]
-        lo = e[np.arange(n_lam), np.maximum(first - 1, 0)]
-    ends = trace_rays(medium, hi, np.arange(n_lam), step_scale=step_scale)
-    return SeaHorizon(hi, ends.true_altitude_deg, ends.airmass, "search")
+        ends = trace_rays(medium, e.ravel(), np.repeat(sel, rays), step_scale=step_scale)
+        ok = (ends.fate == ESCAPED).reshape(sel.size, rays)
+        first = np.where(ok.any(axis=1), np.argmax(ok, axis=1), rays - 1)
+        hi = e[np.arange(sel.size), first]
+        lo = e[np.arange(sel.size), np.maximum(first - 1, 0)]
+    ends = trace_rays(medium, hi, sel, step_scale=step_scale)
+    out = np.full((3, n_lam), np.nan)
+    out[:, sel] = hi, ends.true_altitude_deg, ends.airmass
+    return SeaHorizon(out[0], out[1], out[2], "search")
 
 
 @dataclass(frozen=True)
@@ -654,13 +715,13 @@ class TransferCurve:
     folded: np.ndarray
 
     def true_altitude_at(self, k: int, elevation_deg) -> np.ndarray:
-        """True altitude [deg] seen at apparent elevations [deg] for wavelength k (NaN below the horizon)."""
+        """True altitude [deg] seen at elevations [deg] by row k (NaN below the horizon)."""
         e = self.apparent_elevation_deg[k]
         a = np.interp(elevation_deg, e, self.true_altitude_deg[k])
         return np.where(np.asarray(elevation_deg) < e[0], np.nan, a)
 
     def elevation_of(self, k: int, true_altitude_deg) -> np.ndarray:
-        """Lowest apparent elevation [deg] at which wavelength k sees a true altitude (NaN if none)."""
+        """Lowest elevation [deg] at which row k sees a true altitude [deg] (NaN if none)."""
         a = self.true_altitude_deg[k]
         e = self.apparent_elevation_deg[k]
         if not self.folded[k]:
@@ -695,54 +756,40 @@ def transfer_curve(medium: Medium, *, span_arcmin: float = 45.0, rays: int = 48,
     horizon : SeaHorizon, optional
         Reuse a horizon already found.
     """
+    return _transfer_curve(medium, span_arcmin, rays, step_scale, horizon)[0]
+
+
+def _transfer_curve(medium: Medium, span_arcmin: float, rays: int, step_scale: float,
+                    horizon: SeaHorizon | None):
+    """:func:`transfer_curve`, and which rows' horizons were searched for (L,)."""
     n_lam = medium.ln_n.shape[0]
-    graze = _graze(medium, step_scale) if horizon is None else None
-    if horizon is None and graze is None:
-        horizon = _horizon_by_search(medium, step_scale=step_scale)
-    e_h = horizon.apparent_elevation_deg if graze is None else graze.elevation_deg
     u = np.linspace(0.0, 1.0, rays) ** 2
-    e = e_h[:, None] + (span_arcmin / 60.0) * u[None, :]
-    rows = np.repeat(np.arange(n_lam), rays - 1)
-    radius, h = medium.earth_radius_m, medium.eye_height_m
-    er = np.radians(e[:, 1:].ravel())
-    y0 = np.stack([np.full(er.size, h), np.sin(er), np.cos(er), np.zeros(er.size)])
-    c0 = np.exp(_ln_n_at(medium, h))[rows] * (radius + h) * y0[2]
-    col0 = np.zeros(er.size)
-    if graze is not None:  # the grazing rays go first
-        rows = np.concatenate([np.arange(n_lam), rows])
-        y0, c0 = np.concatenate([graze.y, y0], axis=1), np.concatenate([graze.c0, c0])
-        col0 = np.concatenate([2.0 * graze.column_m, col0])
-    run = _integrate(_Profile(medium), y0, rows, radius, column0_m=col0, step_scale=step_scale)
-    if graze is not None:
-        horizon = _horizon_from(medium, graze, run)
-    alt, _ = _exits(medium, run, rows, c0)
-    air = np.where(run.fate == ESCAPED, run.column_m / _column(medium, rows), np.nan)
-    a = np.empty_like(e)
-    m = np.empty_like(e)
-    skip = 0 if graze is None else n_lam
-    a[:, 0], m[:, 0] = horizon.true_altitude_deg, horizon.airmass
-    a[:, 1:] = alt[skip:].reshape(n_lam, rays - 1)
-    m[:, 1:] = air[skip:].reshape(n_lam, rays - 1)
+    above = np.broadcast_to((span_arcmin / 60.0) * u[1:], (n_lam, rays - 1))
+    hz, searched, alt, air = _horizon_and_rays(medium, above, step_scale, horizon)
+    e = hz.apparent_elevation_deg[:, None] + (span_arcmin / 60.0) * u[None, :]
+    a = np.concatenate([hz.true_altitude_deg[:, None], alt], axis=1)
+    m = np.concatenate([hz.airmass[:, None], air], axis=1)
     folded = np.any(np.diff(a, axis=1) <= 0, axis=1)
-    return TransferCurve(medium.wavelength_nm, e, a, m, horizon, folded)
+    return TransferCurve(medium.wavelength_nm, e, a, m, hz, folded), searched
 
 
-def transfer_curves(media: Sequence[Medium], **options) -> list[TransferCurve]:
+def transfer_curves(media: Sequence[Medium], *, span_arcmin: float = 45.0, rays: int = 48,
+                    step_scale: float = 1.0) -> list[TransferCurve]:
     """Transfer curves of several media (e.g. trial lapse rates) in one integration.
 
-    The media must share the height grid, kinks, Earth radius and eye height (as
-    :func:`analyse.atmosphere.linear_layer_atmosphere` gives for one layer top and eye
-    height). ``options`` are those of :func:`transfer_curve`, except ``horizon``. Where
-    any medium has a duct below the eye, every horizon is found by search.
+    The same as ``[transfer_curve(m, ...) for m in media]``, faster: the rows of all
+    media advance together. The media must share the height grid, kinks, Earth radius
+    and eye height, as :func:`analyse.atmosphere.linear_layer_atmosphere` gives for one
+    layer top and eye height; a ``ValueError`` says when they do not.
     """
-    curve = transfer_curve(_stack_media(media), **options)
+    curve, searched = _transfer_curve(_stack_media(media), span_arcmin, rays, step_scale, None)
     out, start = [], 0
     for med in media:
         k = slice(start, start + med.ln_n.shape[0])
         start = k.stop
-        hz = curve.horizon
-        hz = SeaHorizon(hz.apparent_elevation_deg[k], hz.true_altitude_deg[k],
-                        hz.airmass[k], hz.method)
+        hz = SeaHorizon(curve.horizon.apparent_elevation_deg[k],
+                        curve.horizon.true_altitude_deg[k], curve.horizon.airmass[k],
+                        "search" if np.any(searched[k]) else "tangent ray")
         out.append(TransferCurve(curve.wavelength_nm[k], curve.apparent_elevation_deg[k],
                                  curve.true_altitude_deg[k], curve.airmass[k], hz,
                                  curve.folded[k]))

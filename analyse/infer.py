@@ -34,6 +34,7 @@ from analyse.predict import (
     Conditions,
     SunsetModel,
     build_model,
+    build_models,
     last_light_altitude_deg,
     limb_elevation_deg,
     visible_fraction,
@@ -358,9 +359,12 @@ class _Emulator:
         from tqdm import tqdm
 
         todo = [float(g) for g in gammas if float(g) not in self.preds]
-        for g in tqdm(todo, disable=not progress, desc="fitting lapse rate", unit="model",
-                      leave=False):
-            self.preds[g] = self.make(g)
+        if not todo:
+            return
+        with tqdm(total=len(todo), disable=not progress, desc="fitting lapse rate",
+                  unit="atmosphere", leave=False) as bar:
+            self.preds.update(self.make(todo))  # traced together: one integration
+            bar.update(len(todo))
 
     def profile(self, fine, y, err, is_h, clock_prior, scale_prior):
         from scipy.interpolate import CubicSpline
@@ -388,9 +392,10 @@ def infer_lapse_rate(measurement, obs, *, bands=None, progress: bool = False) ->
     scale_prior = _scale_prior(measurement)
     y, err, is_h = _observed(data)
 
-    def make(g: float) -> _Prediction:
-        return _predict(build_model(cond, g, bands=bands, azimuth_deg=sun.azimuth, rays=_RAYS,
-                                    span_arcmin=_SPAN_ARCMIN), data, sun)
+    def make(gammas: list[float]) -> dict[float, _Prediction]:
+        models = build_models(cond, gammas, bands=bands, azimuth_deg=sun.azimuth, rays=_RAYS,
+                              span_arcmin=_SPAN_ARCMIN)
+        return {g: _predict(m, data, sun) for g, m in zip(gammas, models)}
 
     emu = _Emulator(make)
     emu.add(SCAN_K_PER_KM, progress)

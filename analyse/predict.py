@@ -33,6 +33,7 @@ from analyse.refraction import (
     earth_radius_of_curvature_m,
     make_medium,
     transfer_curve,
+    transfer_curves,
 )
 from analyse.sun import sun_track, sunset_time, time_of_altitude
 from calibration.bands import (
@@ -49,6 +50,7 @@ __all__ = [
     "ChannelModel",
     "SunsetModel",
     "build_model",
+    "build_models",
     "visible_fraction",
     "limb_elevation_deg",
     "last_light_altitude_deg",
@@ -100,6 +102,36 @@ class SunsetModel:
     u_limb: np.ndarray  # (L,) limb-darkening coefficient per node
 
 
+def _atmosphere(c: Conditions, lapse_rate_K_per_km: float) -> Atmosphere:
+    return linear_layer_atmosphere(
+        lapse_rate_K_per_km, layer_top_m=c.layer_top_m, eye_height_m=c.eye_height_m,
+        temperature_C=c.temperature_C, pressure_hPa=c.pressure_hPa,
+        relative_humidity=c.relative_humidity)
+
+
+def _wavelengths(bands: dict[str, Band]) -> np.ndarray:
+    return np.concatenate([b.wavelength_nm for b in bands.values()])
+
+
+def _assemble(c: Conditions, gamma: float, atmosphere: Atmosphere, medium: Medium,
+              curve: TransferCurve, bands: dict[str, Band]) -> SunsetModel:
+    """Channel weights at the horizon ray for a traced atmosphere."""
+    p_eye_hPa = float(np.interp(c.eye_height_m, atmosphere.height_m, atmosphere.pressure_Pa)) / 100
+    channels, start = {}, 0
+    for n, b in bands.items():
+        k = np.arange(start, start + b.wavelength_nm.size)
+        start += k.size
+        m_hor = float(np.mean(curve.horizon.airmass[k]))
+        w = band_weights(b, airmass=m_hor, pressure_hPa=p_eye_hPa,
+                         tau_aerosol_550=c.tau_aerosol_550, angstrom_alpha=c.angstrom_alpha)
+        tau = (rayleigh_optical_depth_bodhaine1999(b.wavelength_nm, pressure_hPa=p_eye_hPa)
+               + aerosol_optical_depth_angstrom(b.wavelength_nm, c.tau_aerosol_550,
+                                                c.angstrom_alpha))
+        channels[n] = ChannelModel(b, k, np.asarray(w), np.asarray(tau))
+    return SunsetModel(c, float(gamma), atmosphere, medium, curve, channels,
+                       disc.limb_darkening_u(_wavelengths(bands)))
+
+
 def build_model(conditions: Conditions, lapse_rate_K_per_km: float, *,
                 bands: dict[str, Band] | None = None, azimuth_deg: float = 270.0,
                 atmosphere: Atmosphere | None = None, rays: int = 48,
@@ -122,31 +154,26 @@ def build_model(conditions: Conditions, lapse_rate_K_per_km: float, *,
     """
     c = conditions
     bands = default_bands() if bands is None else bands
-    if atmosphere is None:
-        atmosphere = linear_layer_atmosphere(
-            lapse_rate_K_per_km, layer_top_m=c.layer_top_m, eye_height_m=c.eye_height_m,
-            temperature_C=c.temperature_C, pressure_hPa=c.pressure_hPa,
-            relative_humidity=c.relative_humidity)
-    names = list(bands)
-    lam = np.concatenate([bands[n].wavelength_nm for n in names])
+    atmosphere = _atmosphere(c, lapse_rate_K_per_km) if atmosphere is None else atmosphere
     radius = earth_radius_of_curvature_m(c.latitude_deg, azimuth_deg)
-    medium = make_medium(atmosphere, lam, earth_radius_m=radius)
+    medium = make_medium(atmosphere, _wavelengths(bands), earth_radius_m=radius)
     curve = transfer_curve(medium, rays=rays, span_arcmin=span_arcmin)
-    p_eye_hPa = float(np.interp(c.eye_height_m, atmosphere.height_m, atmosphere.pressure_Pa)) / 100
-    channels, start = {}, 0
-    for n in names:
-        b = bands[n]
-        k = np.arange(start, start + b.wavelength_nm.size)
-        start += k.size
-        m_hor = float(np.mean(curve.horizon.airmass[k]))
-        w = band_weights(b, airmass=m_hor, pressure_hPa=p_eye_hPa,
-                         tau_aerosol_550=c.tau_aerosol_550, angstrom_alpha=c.angstrom_alpha)
-        tau = (rayleigh_optical_depth_bodhaine1999(b.wavelength_nm, pressure_hPa=p_eye_hPa)
-               + aerosol_optical_depth_angstrom(b.wavelength_nm, c.tau_aerosol_550,
-                                                c.angstrom_alpha))
-        channels[n] = ChannelModel(b, k, np.asarray(w), np.asarray(tau))
-    return SunsetModel(c, float(lapse_rate_K_per_km), atmosphere, medium, curve, channels,
-                       disc.limb_darkening_u(lam))
+    return _assemble(c, lapse_rate_K_per_km, atmosphere, medium, curve, bands)
+
+
+def build_models(conditions: Conditions, lapse_rates_K_per_km, *,
+                 bands: dict[str, Band] | None = None, azimuth_deg: float = 270.0,
+                 rays: int = 48, span_arcmin: float = 45.0) -> list[SunsetModel]:
+    """:func:`build_model` for several lapse rates, traced together in one integration."""
+    c = conditions
+    bands = default_bands() if bands is None else bands
+    radius = earth_radius_of_curvature_m(c.latitude_deg, azimuth_deg)
+    lam = _wavelengths(bands)
+    atmospheres = [_atmosphere(c, g) for g in lapse_rates_K_per_km]
+    media = [make_medium(a, lam, earth_radius_m=radius) for a in atmospheres]
+    curves = transfer_curves(media, rays=rays, span_arcmin=span_arcmin)
+    return [_assemble(c, g, a, m, cv, bands)
+            for g, a, m, cv in zip(lapse_rates_K_per_km, atmospheres, media, curves)]
 
 
 def visible_fraction(model: SunsetModel, channel: str, centre_altitude_deg,

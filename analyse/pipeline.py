@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import collections
 import dataclasses
-import json
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -66,26 +65,12 @@ class Measurement:
 
 
 def read_calibration(path: Path | None) -> dict | None:
-    """Read calibration.json (written by ``calibrate``); None when no path is given."""
+    """Read and validate calibration.json (written by ``calibrate``); None without a path."""
     if path is None:
         return None
-    try:
-        data = json.loads(Path(path).read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read the calibration: {exc.strerror or exc}", path) from None
-    except json.JSONDecodeError as exc:
-        raise InputError(f"not valid JSON (line {exc.lineno}): {exc.msg}", path) from None
-    if not isinstance(data, dict):
-        raise InputError("a calibration must be a JSON object", path)
-    scale = data.get("plate_scale_arcsec_per_px")
-    if scale is not None and not (isinstance(scale, (int, float)) and scale > 0):
-        raise InputError("plate_scale_arcsec_per_px must be a positive number", path)
-    offsets = data.get("channel_offset_px", {})
-    if not isinstance(offsets, dict) or any(
-            not (isinstance(v, list) and len(v) == 2 and all(isinstance(x, (int, float)) for x in v))
-            for v in offsets.values()):
-        raise InputError('channel_offset_px must map "r"/"b" to [dx, dy] pairs of numbers', path)
-    return data
+    from calibration.store import read_calibration as read
+
+    return read(path)
 
 
 def bands_for(calib: dict | None, calib_path: Path | None):
@@ -274,10 +259,13 @@ def _plate_scale(obs: Observation, calib: dict | None, geometry: DiscGeometry,
     return float(scale), source, notes
 
 
-def _colour_offsets(calib: dict | None, colour_dy: dict[str, list[float]]):
+def _colour_offsets(calib: dict | None, colour_dy: dict[str, list[float]], sun_xy):
+    """Vertical lens offsets of r and b from green at the Sun: calibration, else horizon."""
     if calib is not None and calib.get("channel_offset_px"):
-        offs = calib["channel_offset_px"]
-        return {c: float(offs[c][1]) for c in offs if c in ("r", "b")} | {"g": 0.0}, "calibration"
+        from calibration.store import channel_offset_at
+
+        offs = channel_offset_at(calib, *sun_xy)
+        return {c: float(offs[c][1]) for c in offs} | {"g": 0.0}, "calibration"
     dy = {c: float(np.median(v)) if v else 0.0 for c, v in colour_dy.items()}
     source = "horizon edge" if any(colour_dy.values()) else "none (assumed zero)"
     return dy | {"g": 0.0}, source
@@ -303,7 +291,10 @@ def _observables(fs, obs, table: FrameTable, colour_dy, strip) -> Measurement:
                              np.where(chord_frames, table.width_px["r"], np.nan))
     scale, scale_source, scale_notes = _plate_scale(obs, calib, geometry, sd)
     notes += scale_notes
-    dy, dy_source = _colour_offsets(calib, colour_dy)
+    x_sun = float(np.nanmedian(table.apex_x_px["g"])) if np.any(np.isfinite(
+        table.apex_x_px["g"])) else 0.5 * fs.width
+    y_sun = float(np.nanmedian(table.horizon_row_px))
+    dy, dy_source = _colour_offsets(calib, colour_dy, (x_sun, y_sun))
     observables = sequence_observables(
         table, plate_scale_arcsec_per_px=scale, plate_scale_source=scale_source,
         colour_offset_dy_px=dy, colour_offset_source=dy_source, geometry=geometry)

@@ -4,7 +4,9 @@ Method
 ------
 1. Columns are grouped in blocks of ``step`` adjacent columns (``step`` chosen so that
    about :data:`COLUMN_TARGET` blocks cover the frame) and averaged: less noise, and the
-   cost of a full frame is that of a few hundred columns.
+   cost of a full frame is that of a few hundred columns. Only a band around a prior
+   line is searched: the previous frame's, or else that of a first pass with wider
+   blocks (:data:`COARSE_COLUMNS`) over the whole height.
 2. Each block's profile down the image is filtered with a derivative-of-Gaussian
    (scale :data:`EDGE_SMOOTH_PX`). The sky-to-sea step is the extreme of that response
    (its sign, brighter above or below, is taken from the majority of blocks). A constant
@@ -19,7 +21,8 @@ Method
 
 The line found is the green channel's horizon by default: the lens's lateral colour
 shifts the red and blue images, and :func:`horizon_colour_offsets` measures by how much
-on the same edge.
+on the same edge (there with a centroid of the sRGB-encoded gradient, which chroma
+subsampling does not move; see its docstring).
 
 References
 ----------
@@ -34,9 +37,11 @@ References
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
+import cv2
 import numpy as np
 from scipy.ndimage import gaussian_filter1d
 from scipy.special import ndtr
@@ -46,11 +51,13 @@ from analyse.frames import linear_to_srgb
 __all__ = ["HorizonLine", "find_horizon", "horizon_colour_offsets", "column_edges",
            "robust_line", "encoding_bias"]
 
-COLUMN_TARGET = 480  # column blocks across a frame; 1920 px -> blocks of 4 (brief: "every 4th")
+COLUMN_TARGET = 480  # column blocks across a frame (1920 px: blocks of 4 columns)
 EDGE_SMOOTH_PX = 1.5  # derivative-of-Gaussian scale [px] (common practice, no source)
 EDGE_MIN_SNR = 6.0  # a block's edge must stand this many noise sigmas above its column
 EDGE_MAX_SIGMA_PX = 4.0  # wider edges are not a sea horizon (haze bands, sky gradients) [px]
+COARSE_COLUMNS = 120  # column blocks of the first pass over the whole height
 PRIOR_BAND_PX = 12.0  # search band around the previous frame's line [px]
+COARSE_BAND_PX = 4.0  # search band around the first pass's line [px]
 COLOUR_BAND_PX = 6.0  # search band for the r/b edges around the green line [px]
 CENTROID_HALF_PX = 5  # half-window of the encoded-gradient centroid [px]
 RANSAC_TRIALS = 200  # random pairs tried
@@ -107,9 +114,9 @@ def _plane(image: np.ndarray, channel: str) -> np.ndarray:
 def _blocks(plane: np.ndarray, step: int, r0: int, r1: int) -> tuple[np.ndarray, np.ndarray]:
     """Rows r0..r1-1 averaged over blocks of ``step`` columns; block centre columns [px]."""
     n = plane.shape[1] // step
-    strip = plane[r0:r1, : n * step].astype(np.float32)
-    if step > 1:
-        strip = strip.reshape(r1 - r0, n, step).mean(axis=2)
+    strip = np.ascontiguousarray(plane[r0:r1, : n * step], dtype=np.float32)
+    if step > 1:  # INTER_AREA with an integer factor is the exact block mean
+        strip = cv2.resize(strip, (n, r1 - r0), interpolation=cv2.INTER_AREA)
     return strip, np.arange(n) * step + 0.5 * (step - 1)
 
 
@@ -144,8 +151,12 @@ def column_edges(strip: np.ndarray, lo: np.ndarray, hi: np.ndarray, *, polarity:
     d = d - np.median(d, axis=0)
     rows = np.arange(strip.shape[0])[:, None]
     margin = 2.0 * EDGE_SMOOTH_PX
-    inside = (rows >= np.maximum(lo, margin)) & (rows <= np.minimum(hi, strip.shape[0] - 1 - margin))
-    noise = 1.4826 * float(np.median(np.abs(d))) + 1e-12
+    last = strip.shape[0] - 1 - margin
+    inside = (rows >= np.maximum(lo, margin)) & (rows <= np.minimum(hi, last))
+    # Pixel noise from differences between neighbouring columns (the edge is nearly
+    # horizontal and cancels), times the filter's noise gain.
+    diff = (strip[:, 1:] - strip[:, :-1]).ravel()[::3]
+    noise = 1.4826 * float(np.median(np.abs(diff))) / math.sqrt(2.0) * _dog_gain() + 1e-12
     if polarity == 0:
         pos = np.where(inside, d, -np.inf).max(axis=0)
         neg = np.where(inside, -d, -np.inf).max(axis=0)
@@ -171,6 +182,14 @@ def column_edges(strip: np.ndarray, lo: np.ndarray, hi: np.ndarray, *, polarity:
     row = np.where(valid, k + offset, np.nan)
     step = np.where(valid, peak * np.sqrt(2.0 * np.pi * np.clip(s2, 0, None)), np.nan)
     return row, snr, np.where(valid, sigma, np.nan), step, polarity
+
+
+@functools.lru_cache(maxsize=1)
+def _dog_gain() -> float:
+    """White-noise gain of the derivative-of-Gaussian filter of :func:`column_edges`."""
+    impulse = np.zeros(64)
+    impulse[32] = 1.0
+    return float(np.linalg.norm(gaussian_filter1d(impulse, EDGE_SMOOTH_PX, order=1)))
 
 
 def _ransac_line(x: np.ndarray, y: np.ndarray) -> np.ndarray:
@@ -249,7 +268,9 @@ def find_horizon(image: np.ndarray, *, exclude_x: tuple[float, float] | None = N
         Columns to leave out (the Sun and its glitter) [px].
     prior : HorizonLine, optional
         The previous frame's line: only a band of :data:`PRIOR_BAND_PX` around it is
-        searched. The caller retries without a prior when nothing is found.
+        searched. The caller retries without a prior when nothing is found. Without
+        one, a first pass with :data:`COARSE_COLUMNS` wider blocks over the whole
+        height serves as the prior.
     min_columns : int, optional
         Fewest inlier column blocks for a line (default: :data:`MIN_COLUMNS` or
         :data:`MIN_COLUMN_FRACTION` of the blocks searched, whichever is more).
@@ -266,13 +287,26 @@ def find_horizon(image: np.ndarray, *, exclude_x: tuple[float, float] | None = N
     x_ref = 0.5 * (w - 1)
     if h < 16 or w < 16:
         return _not_found(f"image of {h}x{w} px is too small for a horizon", x_ref)
-    step = max(1, w // COLUMN_TARGET)
+    band = PRIOR_BAND_PX
+    if prior is None or not prior.found:  # coarse pass over the whole height
+        prior = _fit_line(plane, max(1, w // COARSE_COLUMNS), None, band, exclude_x, None)
+        if not prior.found:
+            return prior
+        band = COARSE_BAND_PX
+    return _fit_line(plane, max(1, w // COLUMN_TARGET), prior, band, exclude_x, min_columns)
+
+
+def _fit_line(plane: np.ndarray, step: int, prior: HorizonLine | None, band: float,
+              exclude_x: tuple[float, float] | None, min_columns: int | None) -> HorizonLine:
+    """Edges of column blocks of ``step`` columns (near ``prior`` if given), then a line."""
+    h, w = plane.shape
+    x_ref = 0.5 * (w - 1)
     xs = np.arange(w // step) * step + 0.5 * (step - 1)
-    r0, r1, lo, hi = _search_rows(h, xs, prior, PRIOR_BAND_PX)
+    r0, r1, lo, hi = _search_rows(h, xs, prior, band)
     if r1 <= r0:
         return _not_found("the prior line lies outside the frame", x_ref)
     strip, xs = _blocks(plane, step, r0, r1)
-    row, snr, sig, height, _ = column_edges(strip, lo, hi)
+    row, _, sig, height, _ = column_edges(strip, lo, hi)
     use = np.ones(xs.size, bool)
     if exclude_x is not None:
         use &= (xs < min(exclude_x) - 0.5 * step) | (xs > max(exclude_x) + 0.5 * step)
@@ -359,7 +393,7 @@ def _encoded_edge(plane: np.ndarray, step: int, r0: int, r1: int, lo: np.ndarray
     peak would follow its noise and compression artefacts.
     """
     strip, _ = _blocks(plane, step, r0, r1)
-    row, _, sig, _, pol = column_edges(strip, lo, hi)
+    row, _, sig, _, _ = column_edges(strip, lo, hi)
     out = np.full(row.shape, np.nan)
     good = keep & np.isfinite(row)
     if good.sum() < MIN_COLUMNS:
@@ -372,10 +406,13 @@ def _encoded_edge(plane: np.ndarray, step: int, r0: int, r1: int, lo: np.ndarray
         return out
     k = k[cols]
     offs = np.arange(-half, half)[:, None]
-    grad = -pol * (enc[k + offs + 1, cols] - enc[k + offs, cols])
-    out[cols] = np.sum((k + offs + 0.5) * grad, axis=0) / np.sum(grad, axis=0)
-    above = float(np.median(strip[k - half - 1, cols] if pol < 0 else strip[k + half + 1, cols]))
-    below = float(np.median(strip[k + half + 1, cols] if pol < 0 else strip[k - half - 1, cols]))
+    grad = enc[k + offs + 1, cols] - enc[k + offs, cols]
+    total = np.sum(grad, axis=0)
+    typical = float(np.median(total))
+    ok = total * np.sign(typical) > 0.5 * abs(typical)  # flat (quantised) columns out
+    out[cols[ok]] = np.sum((k + offs + 0.5) * grad, axis=0)[ok] / total[ok]
+    above = float(np.median(strip[k - half - 1, cols]))
+    below = float(np.median(strip[k + half + 1, cols]))
     return out - encoding_bias(above, below, float(np.nanmedian(sig[good])), half)
 
 

@@ -44,7 +44,7 @@ class Scene:
     flattening: float = 1.0  # vertical / horizontal semi-axis
     apex_height_px: dict = field(default_factory=lambda: {"r": 30.0, "g": 32.0, "b": 33.0})
     limb_darkening: dict = field(default_factory=lambda: {"r": 0.58, "g": 0.66, "b": 0.74})
-    disc_level: dict = field(default_factory=lambda: {"r": 0.85, "g": 0.55, "b": 0.32})
+    disc_level: dict = field(default_factory=lambda: {"r": 0.7, "g": 0.45, "b": 0.28})
     sky_level: dict = field(default_factory=lambda: {"r": 0.22, "g": 0.14, "b": 0.09})
     sea_level: dict = field(default_factory=lambda: {"r": 0.05, "g": 0.04, "b": 0.035})
     psf_sigma_px: float = 1.0

@@ -329,7 +329,8 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
     from analyse.writers import run_simulate
 
     truth = run_simulate(args.scenario, args.out_folder, force=args.force, quiet=args.quiet)
-    print(f"wrote {truth.get('frame_count', '?')} frames to {args.out_folder}")
+    frames = truth.get("rendering", {}).get("frame_count", "?")
+    print(f"wrote {frames} frames to {args.out_folder}")
     return 0
 
 

@@ -385,7 +385,7 @@ def _offsets(t: _Table) -> tuple[tuple[str, float, float], ...]:
     if raw is None:
         return ()
     if not isinstance(raw, dict):
-        t.fail("channel_offset_px", "must be an inline table like {r = [0.3, 0.0], b = [-0.3, 0.1]}")
+        t.fail("channel_offset_px", "must be an inline table like {r = [0.3, 0.0]}")
     out = []
     for name, value in raw.items():
         if name not in ("r", "b"):
@@ -463,9 +463,10 @@ class _Table:
             self.fail(key, f"must be a number, got {value!r}")
         if (low is not None and (value <= low if low_open else value < low)) or (
                 high is not None and value > high):
-            bound = f"{'>' if low_open else '>='} {low:g}" if low is not None else ""
-            upper = f"<= {high:g}" if high is not None else ""
-            self.fail(key, f"= {value} is out of range (must be {' and '.join(filter(None, (bound, upper)))})")
+            bounds = [f"{'>' if low_open else '>='} {low:g}" if low is not None else "",
+                      f"<= {high:g}" if high is not None else ""]
+            self.fail(key, f"= {value} is out of range (must be "
+                      f"{' and '.join(filter(None, bounds))})")
         return float(value)
 
     def integer(self, key: str, *, required: bool = False, default: int | None = None,

@@ -23,33 +23,45 @@ disc's intensity at ``(u, a_k(e))`` times the transmission, so a sub-row
 the true-sky box ``[u1, u2] x [a1, a2]``. The uniform part of that box flux is exact:
 with the disc's radius as unit, the area of the disc below ``y`` and left of ``x`` has a
 closed form ``H(x, y)`` (:func:`disc_area_below_left`) and a box is a difference of four
-``H``. The limb-darkened part uses ``mu`` at the middle of the part of the box's column
-inside the disc. The transmission is ``exp(-tau_k m_k)`` with ``m_k`` the airmass of the
-traced rays of that piece of the curve (their mean, as :func:`analyse.predict.visible_fraction`
-uses), and the node weights are sensitivity x solar spectrum outside the atmosphere, so
-reddening and dimming come from the rays themselves.
+``H``. The limb-darkened part takes ``mu`` at the middle of the part of the pixel's
+central column that lies inside the disc. The transmission is ``exp(-tau_k m_k)``, with
+``m_k`` the airmass of the traced rays bounding that piece of the curve (their mean, as
+:func:`analyse.predict.visible_fraction` uses), averaged over each sub-row; the node
+weights are sensitivity x solar spectrum outside the atmosphere, so reddening and
+dimming come from the rays themselves.
 
 Camera. Optical blur (Gaussian), exposure (locked, or automatic with a lag), photon noise
 (a normal with variance equal to the mean, which Poisson approaches above ~10 e-) and
 read noise in electrons, clipping at the full well, sRGB encoding (IEC 61966-2-1) and
-quantisation. One seeded random generator makes every run bit-for-bit the same.
+quantisation. One seeded random generator makes every run bit-for-bit the same; the
+noise is drawn from a bank of normal deviates at a random offset per frame (fast;
+frames are uncorrelated, not strictly independent).
+
+References
+----------
+.. [1] Linear limb darkening as in :mod:`analyse.disc` (Allen's Astrophysical
+   Quantities, 4th ed., section 14.7).
+.. [2] IEC 61966-2-1:1999, sRGB encoding (section 5.3).
+.. [3] Transmission and airmass of the traced rays: :mod:`calibration.bands` (Bodhaine
+   et al. 1999; Angstrom 1929) and :mod:`analyse.refraction`.
 """
 
 from __future__ import annotations
 
+from collections import deque
 from collections.abc import Iterator
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import cv2
 import numpy as np
 
-from analyse import disc
 from analyse.atmosphere import Atmosphere, tabulated_atmosphere
 from analyse.errors import InputError
 from analyse.frames import linear_to_srgb
 from analyse.observation import DEFAULT_RELATIVE_HUMIDITY, standard_atmosphere_1976
 from analyse.predict import Conditions, Prediction, predict_sunset, visible_fraction
-from analyse.scenario import Scenario
+from analyse.scenario import MAX_FRAMES, Scenario
 from analyse.sun import SunTrack, sun_track
 from calibration.bands import Band, band_weights, bands_from_csv, default_bands
 
@@ -68,7 +80,10 @@ SKY_FALLOFF_DEG = 2.0  # sky darkens upwards over this elevation (illustrative)
 AUREOLE_DEG = 1.0  # brighter sky around the Sun (illustrative)
 SEA_FALLOFF_DEG = 0.5  # sea darkens downwards over this depression (illustrative)
 GLITTER_DEPTH_DEG = 0.4  # glitter fades downwards over this depression (illustrative)
-GLITTER_WIDTH_DEG = 0.15  # glitter column half-width at the horizon (illustrative)
+GLITTER_WIDTH_DEG = 0.08  # glitter column half-width at the horizon (illustrative)
+GLITTER_SPREAD = 0.3  # its widening per degree below the horizon (illustrative)
+_COARSE_PX = 4  # pixels between samples of the smooth sky and sea
+_BANK_SPARE = 2**20  # extra random deviates in a bank, for the per-frame random offset
 
 
 @dataclass(frozen=True)
@@ -102,6 +117,8 @@ class Simulation:
     centre_signal: dict[str, float]  # disc centre seen along the horizon ray, per channel
     locked_gain_e: float  # electrons per unit radiance of the locked exposure
     clock_error_s: float  # written minus true time [s], whole milliseconds
+    horizon_offset_px: np.ndarray  # (3,) each channel's sea horizon above green's [px]
+    sun_light: np.ndarray  # (3, N) the Sun's visible light per channel and frame
 
 
 @dataclass(frozen=True)
@@ -154,9 +171,16 @@ def prepare_simulation(scenario: Scenario) -> Simulation:
     centre = {c.name: float(np.sum(c.weight * np.exp(-c.tau * c.horizon_airmass)))
               for c in channels}
     gain = scenario.camera.exposure_level * scenario.camera.full_well_e / max(centre.values())
-    return Simulation(scenario, prediction, channels, times, track, float(azimuth),
-                      -prediction.dip_arcmin["g"] / 60.0, centre, float(gain),
-                      round(scenario.output.clock_error_s, 3))
+    e_green = -prediction.dip_arcmin["g"] / 60.0
+    to_px = 3600.0 / scenario.camera.plate_scale_arcsec_per_px
+    horizon = np.array([(-prediction.dip_arcmin[c.name] / 60.0 - e_green) * to_px
+                        for c in channels])
+    light = np.stack([visible_fraction(model, c.name, track.altitude_deg,
+                                       track.semidiameter_arcsec) * centre[c.name]
+                      for c in channels])
+    return Simulation(scenario, prediction, channels, times, track, float(azimuth), e_green,
+                      centre, float(gain), round(scenario.output.clock_error_s, 3), horizon,
+                      light)
 
 
 def _conditions(scenario: Scenario) -> tuple[Conditions, Atmosphere | None]:
@@ -214,8 +238,13 @@ def _frame_times(scenario: Scenario, prediction: Prediction) -> np.ndarray:
         duration = float(tm.last_seconds or 0.0) + tm.after_seconds
     start = round(start, 3)
     rng = np.random.default_rng(np.random.SeedSequence([scenario.output.seed, 1]))
+    count = (int(np.floor(duration * tm.fps + 1e-9)) + 1 if tm.fps is not None else
+             len(tm.frame_times_s) if tm.frame_times_s is not None else
+             sum(b.count for b in tm.bursts))
+    if count > MAX_FRAMES:
+        raise InputError(f"[time] {count} frames are more than {MAX_FRAMES}", scenario.path)
     if tm.fps is not None:
-        n = int(np.floor(duration * tm.fps + 1e-9)) + 1
+        n = count
         steps = np.full(n - 1, 1.0 / tm.fps)
         if tm.fps_jitter:
             steps *= np.clip(1.0 + tm.fps_jitter * rng.standard_normal(n - 1), 0.2, None)
@@ -234,17 +263,15 @@ def _frame_times(scenario: Scenario, prediction: Prediction) -> np.ndarray:
     if np.any(np.diff(ticks) <= 0):
         raise InputError(f"[time] two frames fall within one time step ({step:g} s) or "
                          "bursts overlap", scenario.path)
-    if ticks.size > 100_000:
-        raise InputError(f"[time] {ticks.size} frames are more than 100000", scenario.path)
     return start + ticks * step
 
 
 def _check_span(scenario: Scenario, altitude_deg: np.ndarray, track: SunTrack) -> None:
     """Refuse a window whose first frame shows the Sun above the traced transfer curve."""
-    top = float(track.altitude_deg[0] + track.semidiameter_arcsec[0] / 3600.0)
+    top = float(np.max(track.altitude_deg + track.semidiameter_arcsec / 3600.0))
     traced = float(np.nanmin(altitude_deg[:, -1]))
     if top > traced:
-        raise InputError(f"[time] at the window's start the Sun's upper limb is "
+        raise InputError(f"[time] in the window the Sun's upper limb reaches "
                          f"{(top - traced) * 60:.1f} arcmin above the highest traced ray; "
                          "start later (the forward model traces only the sky near the "
                          "horizon)", scenario.path)
@@ -373,7 +400,7 @@ def _altitudes(ch: ChannelCurves, e: np.ndarray) -> tuple[np.ndarray, np.ndarray
 
 
 def render_radiance(sim: Simulation, index: int, shake_px: tuple[float, float] = (0.0, 0.0),
-                    glitter_rng: np.random.Generator | None = None) -> np.ndarray:
+                    sparkle: np.ndarray | float = 1.0) -> np.ndarray:
     """The scene of frame ``index`` as the lens forms it, before blur and the sensor.
 
     Parameters
@@ -383,8 +410,8 @@ def render_radiance(sim: Simulation, index: int, shake_px: tuple[float, float] =
         Frame number.
     shake_px : (float, float)
         Displacement of the whole image (dx right, dy down) [px].
-    glitter_rng : numpy Generator, optional
-        Draws the sparkle of the sun glitter; without it the glitter is smooth.
+    sparkle : (H, W) ndarray or float
+        Random brightness factors of the sun glitter (mean 1); 1 for a smooth glitter.
 
     Returns
     -------
@@ -397,7 +424,7 @@ def render_radiance(sim: Simulation, index: int, shake_px: tuple[float, float] =
     d_az = (float(tr.azimuth_deg[index]) - sim.camera_azimuth_deg + 180.0) % 360.0 - 180.0
     scale = np.cos(np.radians(a_c)) * 3600.0 / cam.plate_scale_arcsec_per_px
     u_sun = d_az * scale
-    frame = _background(sim, index, u_sun, shake_px, glitter_rng)
+    frame = _background(sim, index, u_sun, shake_px, sparkle)
     rates = (float(tr.altitude_rate_deg_per_s[index]),
              float(tr.azimuth_rate_deg_per_s[index]) * scale)
     _add_sun(frame, sim, a_c, sd, u_sun, rates, shake_px)
@@ -453,7 +480,8 @@ def _place(frame, patch, row0, col0, cos, sin, xc, y_h) -> None:
     if cos == 1.0:
         frame[row0:row0 + patch.shape[0], col0:col0 + patch.shape[1]] += patch
         return
-    # unrolled (x', y') -> image: x = xc + (x'-xc) cos - (y_h-y') sin, y = y_h - (x'-xc) sin - (y_h-y') cos
+    # unrolled (x', y') -> image: x = xc + (x' - xc) cos - (y_h - y') sin,
+    #                             y = y_h - (x' - xc) sin - (y_h - y') cos
     m = np.array([[cos, sin, xc + (col0 - xc) * cos - (y_h - row0) * sin],
                   [-sin, cos, y_h - (col0 - xc) * sin - (y_h - row0) * cos]])
     h, w = patch.shape[:2]
@@ -494,63 +522,71 @@ def _half_width_px(sim, a_c, sd) -> float:
     """Half the widest visible chord of the disc [px]."""
     lowest = float(np.nanmin(sim.prediction.model.curve.true_altitude_deg))
     gap = max(lowest - a_c, 0.0) * 3600.0
-    return float(np.sqrt(max(sd * sd - gap * gap, 0.0))) / sim.scenario.camera.plate_scale_arcsec_per_px
+    half = float(np.sqrt(max(sd * sd - gap * gap, 0.0)))
+    return half / sim.scenario.camera.plate_scale_arcsec_per_px
 
 
-def _background(sim, index, u_sun, shake, rng) -> np.ndarray:
-    """Twilight sky above the horizon, darker sea below, and the sun glitter on it."""
+def _background(sim, index, u_sun, shake, sparkle) -> np.ndarray:
+    """Twilight sky above the horizon, darker sea below, and the sun glitter on it.
+
+    The smooth parts are evaluated every ``_COARSE_PX`` pixels and interpolated; the
+    horizon's edge (per channel, with its colour offset) and the glitter's sparkle are
+    drawn at full resolution.
+    """
     cam, scene = sim.scenario.camera, sim.scenario.scene
+    light = sim.sun_light[:, index] * scene.glitter_level if scene.glitter else np.zeros(3)
+    if scene.sky_level == 0 and light.max() <= 0:
+        return np.zeros((cam.height_px, cam.width_px, 3), np.float32)
     cos, sin, xc, y_h = _rotation(cam)
     deg = cam.plate_scale_arcsec_per_px / 3600.0
-    xs = (np.arange(cam.width_px, dtype=np.float32) - np.float32(xc + shake[0]))[None, :]
-    ys = (np.arange(cam.height_px, dtype=np.float32) - np.float32(y_h + shake[1]))[:, None]
-    v = -xs * sin - ys * cos  # (H, W) px above the green horizon
-    du = (xs * cos - ys * sin - u_sun) * deg  # degrees from the Sun's azimuth
-    h = v * deg
+    f = _COARSE_PX
+    nx, ny = -(-cam.width_px // f) + 1, -(-cam.height_px // f) + 1
+    xs = (f * np.arange(nx) + (f - 1) / 2 - xc - shake[0])[None, :]
+    ys = (f * np.arange(ny) + (f - 1) / 2 - y_h - shake[1])[:, None]
+    h = (-xs * sin - ys * cos) * deg  # degrees above the green horizon
+    du = (xs * cos - ys * sin) * deg - u_sun * deg  # degrees from the Sun's azimuth
     level = scene.sky_level * sim.centre_signal["g"]
     aureole = np.exp(-(du * du + h * h) / (2 * AUREOLE_DEG**2))
-    sky = level * (0.5 + 0.5 * np.exp(-np.maximum(h, 0) / SKY_FALLOFF_DEG)) * (1 + 2 * aureole)
-    sea = (level * scene.sea_level) * (0.6 + 0.4 * np.exp(np.minimum(h, 0) / SEA_FALLOFF_DEG)) * (
-        1 + aureole)
-    glitter = _glitter(sim, index, du, h, rng)
+    depth = np.maximum(-h, 0)
+    width = GLITTER_WIDTH_DEG + GLITTER_SPREAD * depth
+    smooth = np.stack([
+        level * (0.5 + 0.5 * np.exp(-np.maximum(h, 0) / SKY_FALLOFF_DEG)) * (1 + 2 * aureole),
+        level * scene.sea_level * (0.6 + 0.4 * np.exp(-depth / SEA_FALLOFF_DEG)) * (1 + aureole),
+        np.exp(-depth / GLITTER_DEPTH_DEG - du * du / (2 * width * width))], axis=-1)
+    sky, sea, glitter = (cv2.resize(np.ascontiguousarray(smooth[..., i], np.float32),
+                                    (f * nx, f * ny), interpolation=cv2.INTER_LINEAR
+                                    )[:cam.height_px, :cam.width_px] for i in range(3))
+    xs1 = np.arange(cam.width_px, dtype=np.float32)[None, :] - np.float32(xc + shake[0])
+    ys1 = np.arange(cam.height_px, dtype=np.float32)[:, None] - np.float32(y_h + shake[1])
+    v = -xs1 * np.float32(sin) - ys1 * np.float32(cos)  # (H, 1) without roll, else (H, W)
+    sky -= sea
+    if light.max() > 0:
+        glitter *= sparkle
+        glitter *= 1 - np.clip(v + np.float32(0.5), 0.0, 1.0)
     out = np.empty((cam.height_px, cam.width_px, 3), np.float32)
-    e_h = sim.prediction.model.curve.horizon.apparent_elevation_deg
     for c, ch in enumerate(sim.channels):
         ox, oy = cam.offset_px(ch.name)
-        d_v = -ox * sin - oy * cos  # the channel's image is displaced by its offset
-        v_hz = (float(np.mean(e_h[sim.prediction.model.channels[ch.name].node_index]))
-                - sim.horizon_elevation_deg) / deg
-        sky_part = np.clip(v - d_v - v_hz + 0.5, 0.0, 1.0)
-        out[..., c] = SKY_COLOUR[ch.name] * (sky_part * sky + (1 - sky_part) * sea)
-        if glitter is not None:
-            out[..., c] += (1 - sky_part) * glitter[c]
+        shift = -ox * sin - oy * cos + sim.horizon_offset_px[c] - 0.5
+        plane = np.clip(v - np.float32(shift), 0.0, 1.0)  # share of the pixel above the sea
+        plane = plane * sky
+        plane += sea
+        plane *= np.float32(SKY_COLOUR[ch.name])
+        if light.max() > 0:
+            plane += glitter * np.float32(light[c])
+        out[..., c] = plane
     return out
-
-
-def _glitter(sim, index, du, h, rng):
-    """Sun glitter on the sea below the Sun, coloured and dimmed as the Sun's light."""
-    scene = sim.scenario.scene
-    if not scene.glitter or scene.glitter_level == 0:
-        return None
-    tr = sim.track
-    light = [float(visible_fraction(sim.prediction.model, ch.name, tr.altitude_deg[index],
-                                    tr.semidiameter_arcsec[index])[0]) * sim.centre_signal[ch.name]
-             for ch in sim.channels]
-    if max(light) <= 0:
-        return None
-    depth = np.maximum(-h, 0)
-    width = GLITTER_WIDTH_DEG + 2 * depth
-    shape = np.exp(-depth / GLITTER_DEPTH_DEG - du * du / (2 * width * width)) * (h < 0)
-    if rng is not None:
-        shape *= rng.standard_exponential(shape.shape, dtype=np.float32) ** 2 / 2
-    return [scene.glitter_level * lit * shape for lit in light]
 
 
 # --- the camera ---------------------------------------------------------------------
 
 
-def iter_frames(sim: Simulation) -> Iterator[tuple[FrameRecord, np.ndarray]]:
-    """Render, blur, expose, add noise and encode every frame, one at a time.
+def iter_frames(sim: Simulation, *, threads: int = 2
+                ) -> Iterator[tuple[FrameRecord, np.ndarray]]:
+    """Render, blur, expose, add noise and encode every frame, in order, one at a time.
+
+    Up to ``threads`` frames are rendered ahead in worker threads (numpy and OpenCV
+    release the GIL); exposure and noise follow in frame order. Memory does not grow with
+    the number of frames.
 
     Yields
     ------
@@ -559,35 +595,60 @@ def iter_frames(sim: Simulation) -> Iterator[tuple[FrameRecord, np.ndarray]]:
         sRGB-encoded R, G, B.
     """
     cam, out = sim.scenario.camera, sim.scenario.output
-    streams = np.random.SeedSequence([out.seed, 2]).spawn(3)
-    shake_rng, noise_rng, glitter_rng = (np.random.default_rng(s) for s in streams)
-    gain = sim.locked_gain_e
-    times = sim.frame_times_unix_s
-    for i, t in enumerate(times):
-        shake = (tuple(float(v) for v in shake_rng.normal(0.0, cam.shake_px, 2))
-                 if cam.shake_px else (0.0, 0.0))
-        radiance = render_radiance(sim, i, shake, glitter_rng)
+    rng = np.random.default_rng(np.random.SeedSequence([out.seed, 2]))
+    n_px = cam.height_px * cam.width_px
+    noise_bank = rng.standard_normal(3 * n_px + _BANK_SPARE, dtype=np.float32)
+    sparkle_bank = rng.standard_exponential(n_px + _BANK_SPARE, dtype=np.float32) ** 2 / 2
+
+    def lens(i: int, shake: tuple[float, float], start: int) -> np.ndarray:
+        sparkle = sparkle_bank[start:start + n_px].reshape(cam.height_px, cam.width_px)
+        radiance = render_radiance(sim, i, shake, sparkle)
         if cam.psf_sigma_px > 0:
             radiance = cv2.GaussianBlur(radiance, (0, 0), cam.psf_sigma_px,
                                         borderType=cv2.BORDER_REFLECT)
-        if cam.exposure == "auto":
-            target = cam.exposure_level * cam.full_well_e / max(float(radiance.max()), 1e-30)
-            if i:
-                follow = 1.0 - np.exp(-(t - times[i - 1]) / cam.auto_exposure_lag_s)
-                target = gain * (target / gain) ** follow
-            gain = min(target, cam.auto_exposure_max_gain * sim.locked_gain_e)
-        image = _sensor(radiance, gain, cam, noise_rng, sim.scenario.bit_depth)
-        record = FrameRecord(i, float(t), float(t) + sim.clock_error_s, float(gain),
-                             cam.exposure_time_s * gain / sim.locked_gain_e, shake)
-        yield record, image
+        return radiance
+
+    times = sim.frame_times_unix_s
+    gain = sim.locked_gain_e
+    pending: deque = deque()
+    with ThreadPoolExecutor(max(threads, 1)) as pool:
+        for i in range(times.size + 1):
+            if i < times.size:
+                shake = (tuple(float(v) for v in rng.normal(0.0, cam.shake_px, 2))
+                         if cam.shake_px else (0.0, 0.0))
+                start = rng.integers(0, _BANK_SPARE, 2)
+                pending.append((i, shake, start[1], pool.submit(lens, i, shake, start[0])))
+            while pending and (len(pending) > threads or i == times.size):
+                k, shake, noise_at, future = pending.popleft()
+                radiance = future.result()
+                gain = _exposure_gain(sim, k, radiance, gain)
+                noise = noise_bank[noise_at:noise_at + 3 * n_px].reshape(radiance.shape)
+                image = _sensor(radiance, gain, cam, noise, sim.scenario.bit_depth)
+                t = float(times[k])
+                yield (FrameRecord(k, t, t + sim.clock_error_s, float(gain),
+                                   cam.exposure_time_s * gain / sim.locked_gain_e, shake),
+                       image)
 
 
-def _sensor(radiance, gain, cam, rng, bits) -> np.ndarray:
+def _exposure_gain(sim: Simulation, k: int, radiance: np.ndarray, gain: float) -> float:
+    """Electrons per unit radiance: locked, or following the frame's brightest pixel."""
+    cam = sim.scenario.camera
+    if cam.exposure != "auto":
+        return sim.locked_gain_e
+    target = cam.exposure_level * cam.full_well_e / max(float(radiance.max()), 1e-30)
+    if k:
+        dt = sim.frame_times_unix_s[k] - sim.frame_times_unix_s[k - 1]
+        target = gain * (target / gain) ** (1.0 - np.exp(-dt / cam.auto_exposure_lag_s))
+    return min(target, cam.auto_exposure_max_gain * sim.locked_gain_e)
+
+
+def _sensor(radiance, gain, cam, noise, bits) -> np.ndarray:
     """Electrons, photon and read noise, full-well clipping, sRGB encoding."""
     electrons = radiance * np.float32(gain)
-    noise = rng.standard_normal(electrons.shape, dtype=np.float32)
-    noise *= np.sqrt(electrons + np.float32(cam.read_noise_e**2))
-    electrons += noise
+    sigma = electrons + np.float32(cam.read_noise_e**2)
+    cv2.sqrt(sigma, sigma)
+    sigma *= noise
+    electrons += sigma
     electrons *= np.float32(1.0 / cam.full_well_e)
     return encode_srgb(electrons, bits)
 
@@ -612,8 +673,10 @@ def encode_srgb(linear: np.ndarray, bits: int = 8) -> np.ndarray:
     IEC 61966-2-1:1999, section 5.3 (encoding), via :func:`analyse.frames.linear_to_srgb`.
     """
     lut = _srgb_table(bits)
-    n = lut.size - 1
-    index = np.clip(linear, 0.0, 1.0) * np.float32(n) + np.float32(0.5)
+    n = np.float32(lut.size - 1)
+    index = linear * n
+    index += np.float32(0.5)
+    np.clip(index, 0.0, n, out=index)
     return lut[index.astype(np.int32)]
 
 

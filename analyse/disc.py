@@ -22,7 +22,8 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["limb_darkening_u", "chord_brightness", "flux_below", "total_flux"]
+__all__ = ["limb_darkening_u", "chord_brightness", "flux_below", "total_flux",
+           "blur_fraction_above"]
 
 # Linear limb-darkening coefficient against wavelength: approximate, from memory of [1].
 _LD_WAVELENGTH_NM = np.array([400.0, 500.0, 600.0, 700.0, 800.0])
@@ -59,3 +60,21 @@ def flux_below(y, u) -> np.ndarray:
 def total_flux(u) -> np.ndarray:
     """Flux of the whole disc, ``pi (1 - u/3)``, in the units of :func:`flux_below`."""
     return np.pi * (1.0 - np.asarray(u, dtype=float) / 3.0)
+
+
+def blur_fraction_above(h, sigma) -> np.ndarray:
+    """Fraction of a thin limb segment's light that stays above the horizon after blur.
+
+    A segment of height ``h`` cut from a large disc has a column-summed brightness
+    ``~ sqrt(h - y)`` at height ``y`` above the horizon line (its chord); a Gaussian blur
+    of ``sigma`` spills part of it below the line, where a flux sum above the line does
+    not look. ``h`` and ``sigma`` in the same unit; broadcasts; 0.5 for ``h -> 0``.
+    """
+    from scipy.special import ndtr
+
+    h = np.maximum(np.asarray(h, dtype=float), 1e-9)
+    x, w = np.polynomial.legendre.leggauss(24)
+    u = 0.5 * (x + 1.0)  # y / h on 0..1
+    wt = 0.5 * w * np.sqrt(1.0 - u)
+    frac = np.sum(wt * ndtr(h[..., None] * u / np.maximum(sigma, 1e-9)), axis=-1)
+    return frac / np.sum(wt)

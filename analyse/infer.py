@@ -29,13 +29,17 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from analyse.disc import blur_fraction_above
 from analyse.measure import CHANNELS
 from analyse.predict import (
+    DETECTION_FRACTION,
     Conditions,
     SunsetModel,
     build_model,
     build_models,
+    horizon_elevation_deg,
     last_light_altitude_deg,
+    light_by_height,
     limb_elevation_deg,
     visible_fraction,
 )
@@ -47,10 +51,15 @@ __all__ = ["SCAN_K_PER_KM", "Inference", "ModelCurves", "infer_lapse_rate", "mod
 SCAN_K_PER_KM = np.array([-120.0, -95.0, -75.0, -58.0, -44.0, -32.0, -22.0, -13.0, -5.0, 1.0,
                           6.5, 12.0, 18.0, 26.0, 36.0, 50.0, 70.0])
 EYE_HEIGHT_ERR_M = 0.5  # default uncertainty of the lens height over the sea (common practice, no source)
-MODEL_FLOOR_ARCSEC = 0.2  # per 1-s bin: how well a single linear layer can follow a real
-# profile's refraction near the horizon (common practice, no source)
+MODEL_FLOOR_ARCSEC = 0.4  # per 1-s bin: how well a single linear layer can follow a real
+# profile's refraction near the horizon, and the image stages' systematics at the limb
+# (0.1 px at 4 arcsec/px on simulated JPEG frames; common practice, no source)
+LAST_LIGHT_FLOOR_S = 0.05  # systematic error of a last-light time beyond its fit (blur, the
+# disc-flux scale: 0.2 s seen on simulated JPEG frames; common practice, no source)
 PLATE_SCALE_REL_ERR = 0.005  # plate scale given by the user: 0.5 % (common practice, no source)
 HEIGHT_WINDOW_S = 60.0  # limb heights used: the final minute before each channel's last light
+HEIGHT_CHANNELS = ("r", "g")  # limb heights fitted: blue is faint and noisy at sunset
+DEFAULT_BLUR_PX = 1.0  # edge blur when the limb fits gave none [px]
 _BIN_S = 1.0  # limb heights are binned to 1 s medians (frame errors are correlated)
 _SPAN_ARCMIN = 20.0
 _RAYS = 32
@@ -70,6 +79,9 @@ class _Data:
     thin_h: dict[str, np.ndarray]  # heights [arcsec] and fluxes of low, significant frames
     thin_f: dict[str, np.ndarray]
     threshold: dict[str, float]  # detection threshold, flux units
+    blur_arcsec: dict[str, float]  # Gaussian sigma of the limb's edge [arcsec]
+    at_fraction: dict[str, bool]  # last light measured at DETECTION_FRACTION of the disc
+    disc_flux: dict[str, float]  # the whole disc's flux in the recording's units
 
 
 @dataclass(frozen=True)
@@ -180,16 +192,22 @@ def _prepare(measurement) -> _Data:
     tab = measurement.table
     scale = ob.plate_scale_arcsec_per_px
     sd = measurement.semidiameter_arcsec
-    t_bins, h_bins, h_err, last, thin_h, thin_f, thr = {}, {}, {}, {}, {}, {}, {}
+    t_bins, h_bins, h_err, last, thin_h, thin_f, thr, blur = {}, {}, {}, {}, {}, {}, {}, {}
+    at_fraction = {}
     for c in CHANNELS:
         ll = ob.last[c]
-        if not np.isfinite(ll.t_unix_s):
-            continue
-        last[c] = (ll.t_unix_s, max(ll.err_s, 1e-3))
+        if not np.isfinite(ll.t_unix_s) or not ll.method.startswith("fading fit to"):
+            continue  # a noise-limited last light depends on the camera, not the air
+        last[c] = (ll.t_unix_s, float(np.hypot(ll.err_s, LAST_LIGHT_FLOOR_S)))
         thr[c] = ll.threshold_flux
+        at_fraction[c] = ll.method.startswith("fading fit to")
+        sig = tab.edge_sigma_px[c][np.isfinite(tab.edge_sigma_px[c])]
+        blur[c] = float(np.median(sig) if sig.size else DEFAULT_BLUR_PX) * scale
         h = (tab.apex_height_px[c] + ob.colour_offset_dy_px.get(c, 0.0)) * scale
-        ok = (tab.visible[c] & tab.horizon_found & np.isfinite(h)
-              & (tab.t_unix_s <= ll.t_unix_s) & (tab.t_unix_s >= ll.t_unix_s - HEIGHT_WINDOW_S))
+        # Apex heights under three blurs are set more by the blur than by the limb.
+        base = (tab.visible[c] & tab.horizon_found & np.isfinite(h) & (h > 3.0 * blur[c])
+                & (tab.t_unix_s <= ll.t_unix_s) & (tab.t_unix_s >= ll.t_unix_s - HEIGHT_WINDOW_S))
+        ok = base if c in HEIGHT_CHANNELS else np.zeros_like(base)
         t, hh = tab.t_unix_s[ok], h[ok]
         err = tab.apex_height_err_px[c][ok] * scale
         _, scatter = _trend(t, hh)
@@ -198,9 +216,10 @@ def _prepare(measurement) -> _Data:
         t_bins[c], h_bins[c], h_err[c], _ = _bin_heights(t, hh, per_frame)
         h_err[c] = np.hypot(h_err[c], MODEL_FLOOR_ARCSEC)
         sig = tab.flux[c] / np.where(tab.flux_err[c] > 0, tab.flux_err[c], np.nan)
-        low = ok & (sig > 10.0) & (h < 0.3 * sd)
+        low = base & (sig > 10.0) & (h < 0.3 * sd)
         thin_h[c], thin_f[c] = h[low], tab.flux[c][low]
-    return _Data(t_bins, h_bins, h_err, last, thin_h, thin_f, thr)
+    return _Data(t_bins, h_bins, h_err, last, thin_h, thin_f, thr, blur, at_fraction,
+                 dict(ob.disc_flux))
 
 
 class _SunInterp:
@@ -224,16 +243,17 @@ class _SunInterp:
         return np.interp(t, self.t, self.rate)
 
 
-def _flux_scale(model: SunsetModel, c: str, sun: _SunInterp, data: _Data, e_hor: float):
-    """Scale of measured flux to the model's visible fraction, matched by limb height."""
+def _model_light(model: SunsetModel, c: str, sun: _SunInterp, blur: float):
+    """Model apex height [arcsec] and blurred visible fraction on a grid of altitudes."""
+    a_c, h, v = light_by_height(model, c, sun.sd)
+    return a_c, h, v * blur_fraction_above(np.maximum(h, 0.0), blur)
+
+
+def _flux_scale(h, v, data: _Data, c: str) -> float:
+    """Scale of measured flux to the model's blurred visible fraction, matched by height."""
     if data.thin_h[c].size < 3:
         return float("nan")
-    hz = model.curve.horizon.true_altitude_deg[model.channels[c].node_index]
-    sd = sun.sd / 3600.0
-    a_c = np.linspace(hz.max() - sd, hz.max() - 0.6 * sd, 120)
-    h = (limb_elevation_deg(model, c, a_c + sd) - e_hor) * 3600.0
-    v = visible_fraction(model, c, a_c, sun.sd)
-    ok = np.isfinite(h)
+    ok = np.isfinite(h) & (h > 0)
     if np.count_nonzero(ok) < 3:
         return float("nan")
     v_at = np.interp(data.thin_h[c], h[ok], v[ok], left=np.nan, right=np.nan)
@@ -242,6 +262,17 @@ def _flux_scale(model: SunsetModel, c: str, sun: _SunInterp, data: _Data, e_hor:
         return float("nan")
     f = data.thin_f[c][good]
     return float(np.sum(f * v_at[good]) / np.sum(v_at[good] ** 2))
+
+
+def _last_light_altitude(a_c, v, frac: float) -> float:
+    """Centre altitude where the (blurred) visible fraction falls through ``frac``."""
+    above = v >= frac
+    if not above.any() or above.all():
+        return float("nan")
+    i = int(np.argmax(above))  # first grid point (rising altitude) with light detected
+    if i == 0:
+        return float(a_c[0])
+    return float(a_c[i - 1] + (frac - v[i - 1]) / (v[i] - v[i - 1]) * (a_c[i] - a_c[i - 1]))
 
 
 @dataclass(frozen=True)
@@ -256,9 +287,14 @@ class _Prediction:
 
 
 def _predict(model: SunsetModel, data: _Data, sun: _SunInterp) -> _Prediction:
-    """Model heights at the measured bin times and model last-light times."""
-    ch_g = model.channels["g"].node_index
-    e_hor = float(np.mean(model.curve.horizon.apparent_elevation_deg[ch_g]))
+    """Model heights at the measured bin times and model last-light times.
+
+    Last light is compared like with like: where the measurement found it at the model's
+    detection fraction of the disc, the model's last light at that fraction; where only
+    the noise limit was found, the model's at the measured noise threshold, converted to
+    a fraction by scaling the model's (blurred) light curve to the measured one.
+    """
+    e_hor = horizon_elevation_deg(model)
     sd_deg = sun.sd / 3600.0
     vals, rates, last, det, scale = [], [], {}, {}, {}
     for c in data.last:
@@ -270,11 +306,19 @@ def _predict(model: SunsetModel, data: _Data, sun: _SunInterp) -> _Prediction:
         vals.append(h0)
         rates.append((h1 - h0) / 0.5)
     for c in data.last:
-        s = _flux_scale(model, c, sun, data, e_hor)
-        frac = data.threshold[c] / s if np.isfinite(s) and s > 0 else np.nan
-        frac = float(np.clip(frac, 1e-7, 0.3)) if np.isfinite(frac) else 1e-4
-        scale[c], det[c] = s, frac
-        last[c] = float(sun.time_of(last_light_altitude_deg(model, c, sun.sd, frac)))
+        if data.at_fraction[c]:
+            det[c], scale[c] = DETECTION_FRACTION, data.disc_flux[c]
+            a_last = last_light_altitude_deg(model, c, sun.sd, DETECTION_FRACTION)
+        else:
+            a_c, h, v = _model_light(model, c, sun, data.blur_arcsec[c])
+            s = _flux_scale(h, v, data, c)
+            frac = data.threshold[c] / s if np.isfinite(s) and s > 0 else np.nan
+            frac = float(np.clip(frac, 1e-7, 0.3)) if np.isfinite(frac) else DETECTION_FRACTION
+            scale[c], det[c] = s, frac
+            a_last = _last_light_altitude(a_c, v, frac)
+            if not np.isfinite(a_last):
+                a_last = last_light_altitude_deg(model, c, sun.sd, frac)
+        last[c] = float(sun.time_of(a_last))
         vals.append(np.array([last[c]]))
         rates.append(np.array([-1.0]))
     return _Prediction(np.concatenate(vals), np.concatenate(rates), last, det, scale)
@@ -497,10 +541,13 @@ def model_curves(inference: Inference, measurement, obs, *, step_s: float = 0.1)
     a_c = sun.altitude(grid - best.delta_s)
     scale = measurement.observables.plate_scale_arcsec_per_px
     heights, fluxes = {}, {}
+    sig = measurement.table.edge_sigma_px
     for c in model.channels:
         h = (limb_elevation_deg(model, c, a_c + sun.sd / 3600.0) - e_hor) * 3600.0
         heights[c] = h * (1.0 + best.scale_correction) / scale
         s = best.flux_scale.get(c, np.nan)
-        fluxes[c] = s * visible_fraction(model, c, a_c, sun.sd)
+        blur_px = np.nanmedian(sig[c]) if np.any(np.isfinite(sig[c])) else DEFAULT_BLUR_PX
+        fluxes[c] = s * visible_fraction(model, c, a_c, sun.sd) * blur_fraction_above(
+            np.nan_to_num(np.maximum(h, 0.0)), blur_px * scale)
     last = {c: v + best.delta_s for c, v in best.last_model.items()}
     return ModelCurves(grid, heights, fluxes, last)

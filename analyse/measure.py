@@ -29,6 +29,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from analyse.disc import blur_fraction_above
+from analyse.predict import DETECTION_FRACTION
+
 __all__ = [
     "CHANNELS",
     "VISIBILITY_SIGMA",
@@ -40,13 +43,16 @@ __all__ = [
     "green_above_red",
     "disc_geometry",
     "exposure_changes",
+    "disc_flux_scale",
     "sequence_observables",
 ]
 
 CHANNELS = ("r", "g", "b")
 VISIBILITY_SIGMA = 5.0  # significance for "sun above the horizon" (common practice, no source)
 OFFSET_WINDOW_S = 60.0  # FOLDER-FORMAT.md: median over the final 60 s before red last light
-_FIT_FRAMES = 6  # last visible frames used for the fading fit
+_FIT_FRAMES = 6
+LEVEL_SNR = 10.0  # the detection level must stand this far above the flux noise to be
+# measured directly (common practice, no source)  # last visible frames used for the fading fit
 
 
 @dataclass(frozen=True)
@@ -62,6 +68,7 @@ class FrameTable:
     apex_height_px, apex_height_err_px : per channel, upper limb above the horizon [px]
     apex_x_px : per channel, column of the apex in the frame [px]
     width_px, height_px : per channel, extent of the sun above the horizon [px]
+    edge_sigma_px : per channel, blur (Gaussian sigma) of the limb's edge [px]
     visible : per channel, bool
     flux, flux_err : per channel, sky-subtracted linear flux above the horizon
     sky_level : per channel, linear
@@ -81,6 +88,7 @@ class FrameTable:
     apex_x_px: dict[str, np.ndarray]
     width_px: dict[str, np.ndarray]
     height_px: dict[str, np.ndarray]
+    edge_sigma_px: dict[str, np.ndarray]
     visible: dict[str, np.ndarray]
     flux: dict[str, np.ndarray]
     flux_err: dict[str, np.ndarray]
@@ -95,20 +103,32 @@ class FrameTable:
 
 @dataclass(frozen=True)
 class LastLight:
-    """When a channel's light was last detected above the horizon."""
+    """When a channel's light fell below the detection level above the horizon."""
 
     channel: str
     t_unix_s: float  # NaN when not measurable
     err_s: float
     last_visible_index: int  # -1 if never visible
     first_dark_index: int  # -1 if never dark after being visible
-    method: str  # "fading fit", "midpoint", or why it is not measurable
-    threshold_flux: float  # detection threshold used [linear flux units]
+    method: str  # how it was found, or why it is not measurable
+    threshold_flux: float  # noise threshold [linear flux units]
+    detection_limit_unix_s: float = float("nan")  # when the light sank into the noise
 
 
 def last_light(t_unix_s, visible, flux, flux_err, *, channel: str = "",
-               sigma: float = VISIBILITY_SIGMA) -> LastLight:
+               sigma: float = VISIBILITY_SIGMA, disc_flux: float | None = None,
+               detection_fraction: float = DETECTION_FRACTION, height_px=None,
+               blur_px: float | None = None) -> LastLight:
     """Last light of one channel from its per-frame visibility and flux.
+
+    With ``disc_flux`` (the whole disc's flux in the recording's units) last light is
+    where the visible flux falls through ``detection_fraction`` of it, the definition
+    the forward model uses: the fading law is fitted to the frames between 2 and 60
+    times that level (each divided by the share of a segment's light that blur leaves
+    above the line, from ``height_px`` and ``blur_px``) and solved for the level.
+    Without it, or where that fit is impossible, last light is where the flux sinks into
+    the noise (``sigma`` times its error), interpolated between the last bright and the
+    first dark frame.
 
     Parameters
     ----------
@@ -117,60 +137,96 @@ def last_light(t_unix_s, visible, flux, flux_err, *, channel: str = "",
     visible : (N,) ndarray of bool
     flux, flux_err : (N,) ndarray
         Visible flux above the horizon and its 1-sigma error [linear units].
-    sigma : float
-        Visibility significance; the threshold is ``sigma * flux_err``.
     """
     t = np.asarray(t_unix_s, dtype=float)
-    vis = np.asarray(visible, dtype=bool).copy()
+    vis = _drop_blips(np.asarray(visible, dtype=bool))
     f = np.asarray(flux, dtype=float)
     fe = np.asarray(flux_err, dtype=float)
-    n = t.size
+    thr = float(sigma * np.nanmedian(fe)) if np.any(np.isfinite(fe)) else float("nan")
     idx = np.flatnonzero(vis)
-    # A lone significant frame after at least two dark ones is a blip, not the sun.
-    while idx.size >= 1:
+    if idx.size == 0:
+        return LastLight(channel, np.nan, np.nan, -1, -1, "never visible", thr)
+    i = int(idx[-1])
+    if i == t.size - 1:
+        return LastLight(channel, np.nan, np.nan, i, -1, "still visible in the last frame", thr)
+    limit, limit_err, how = _noise_crossing(t, f, fe, vis, i, thr)
+    noise = float(np.nanmedian(fe[max(0, i - 20): i + 1])) if np.any(np.isfinite(fe)) else 0.0
+    faint = disc_flux is not None and detection_fraction * disc_flux < LEVEL_SNR * noise
+    if faint:
+        how = (f"{how} (this channel's disc is too faint for {detection_fraction:g} of it to "
+               f"stand {LEVEL_SNR:g} times above the noise)")
+    if not faint and disc_flux is not None and np.isfinite(disc_flux) and disc_flux > 0:
+        frac = f / disc_flux
+        if height_px is not None and blur_px is not None and np.isfinite(blur_px):
+            h = np.nan_to_num(np.asarray(height_px, dtype=float), nan=0.0)
+            frac = frac / blur_fraction_above(np.maximum(h, 0.0), blur_px)
+        tc, tc_err = _level_crossing(t[: i + 1], frac[: i + 1], vis[: i + 1],
+                                     detection_fraction)
+        if np.isfinite(tc) and t[0] <= tc <= t[i + 1] + 2.0 * (t[i + 1] - t[i]):
+            return LastLight(channel, tc, max(tc_err, 0.01 * (t[i + 1] - t[i])), i, i + 1,
+                             f"fading fit to {detection_fraction:g} of the disc", thr, limit)
+    return LastLight(channel, limit, limit_err, i, i + 1, how, thr, limit)
+
+
+def _drop_blips(vis: np.ndarray) -> np.ndarray:
+    """A lone significant frame after at least two dark ones is a blip, not the sun."""
+    vis = vis.copy()
+    idx = np.flatnonzero(vis)
+    while idx.size > 1:
         i = idx[-1]
-        if i >= 2 and not vis[i - 1] and not vis[i - 2] and idx.size > 1:
+        if i >= 2 and not vis[i - 1] and not vis[i - 2]:
             vis[i] = False
             idx = idx[:-1]
             continue
         break
-    thr = float(sigma * np.nanmedian(fe)) if np.any(np.isfinite(fe)) else float("nan")
-    if idx.size == 0:
-        return LastLight(channel, np.nan, np.nan, -1, -1, "never visible", thr)
-    i = int(idx[-1])
-    if i == n - 1:
-        return LastLight(channel, np.nan, np.nan, i, -1, "still visible in the last frame", thr)
+    return vis
+
+
+def _noise_crossing(t, f, fe, vis, i, thr):
+    """Where the flux sinks into the noise, between frame i (bright) and i + 1 (dark)."""
     t0, t1 = t[i], t[i + 1]
     mid, mid_err = 0.5 * (t0 + t1), (t1 - t0) / np.sqrt(12.0)
-    tc, tc_err = _fading_crossing(t[: i + 1], f[: i + 1], fe[: i + 1], vis[: i + 1], thr)
+    sel = np.flatnonzero(vis[: i + 1] & np.isfinite(f[: i + 1]) & (f[: i + 1] > 0))
+    tc, tc_err = _fit_fading(t[sel][-_FIT_FRAMES:], f[sel][-_FIT_FRAMES:],
+                             fe[sel][-_FIT_FRAMES:], thr)
     slack = 3.0 * tc_err + 0.5 * (t1 - t0) if np.isfinite(tc_err) else 0.0
     if np.isfinite(tc) and t0 - slack <= tc <= t1 + slack:
         # Detected at t0, not at t1: the crossing lies between, whatever the noise says.
-        tc = float(np.clip(tc, t0, t1))
         err = float(np.hypot(tc_err, 0.05 * (t1 - t0)))
-        return LastLight(channel, tc, min(err, mid_err), i, i + 1, "fading fit", thr)
-    return LastLight(channel, float(mid), float(mid_err), i, i + 1, "midpoint", thr)
+        return float(np.clip(tc, t0, t1)), min(err, mid_err), "noise limit, fading fit"
+    return float(mid), float(mid_err), "noise limit, midpoint"
 
 
-def _fading_crossing(t, f, fe, vis, threshold):
-    """Fit F^(2/3) linear in t over the last visible frames; time it reaches the threshold."""
-    sel = np.flatnonzero(vis & np.isfinite(f) & (f > 0))[-_FIT_FRAMES:]
-    if sel.size < 3 or not np.isfinite(threshold) or threshold <= 0:
+def _level_crossing(t, frac, vis, level):
+    """Fit the fading law to frames between 2 and 60 times ``level``; time it hits ``level``."""
+    sel = np.flatnonzero(vis & np.isfinite(frac) & (frac > 2.0 * level) & (frac < 60.0 * level))
+    if sel.size < 3 or np.ptp(t[sel]) <= 0:
         return np.nan, np.nan
-    tt = t[sel] - t[sel[-1]]
-    y = f[sel] ** (2.0 / 3.0)
-    y_err = (2.0 / 3.0) * np.maximum(fe[sel], 1e-30) * f[sel] ** (-1.0 / 3.0)
+    y = frac[sel]
+    # Relative scatter of the flux about the law sets the weights (shake, JPEG, glitter).
+    return _fit_fading(t[sel], y, 0.05 * y, level)
+
+
+def _fit_fading(t, f, fe, threshold):
+    """Fit F^(2/3) linear in t; the time it reaches ``threshold`` and its error."""
+    if t.size < 3 or not np.isfinite(threshold) or threshold <= 0:
+        return np.nan, np.nan
+    tt = t - t[-1]
+    y = f ** (2.0 / 3.0)
+    y_err = (2.0 / 3.0) * np.maximum(fe, 1e-30) * f ** (-1.0 / 3.0)
     w = 1.0 / y_err**2
     a = np.vstack([np.ones_like(tt), tt]).T
     cov = np.linalg.pinv(a.T @ (a * w[:, None]))
     c0, c1 = cov @ (a.T @ (w * y))
     if not c1 < 0:
         return np.nan, np.nan
+    chi2 = float(np.sum(w * (y - a @ np.array([c0, c1])) ** 2))
+    cov = cov * max(chi2 / max(t.size - 2, 1), 1.0)  # scatter beyond the stated errors
     y_thr = threshold ** (2.0 / 3.0)
     dt = (y_thr - c0) / c1
     grad = np.array([-1.0 / c1, -(y_thr - c0) / c1**2])
     err = float(np.sqrt(max(grad @ cov @ grad, 0.0)))
-    return float(t[sel[-1]] + dt), err
+    return float(t[-1] + dt), err
 
 
 def green_above_red(table: FrameTable, *, t_last_red: float, plate_scale_arcsec_per_px: float,
@@ -267,6 +323,32 @@ def exposure_changes(sky_level: np.ndarray, *, jump: float = 0.15) -> np.ndarray
     return np.flatnonzero(np.abs(np.log(ratio)) > np.log1p(jump)) + 1
 
 
+def disc_flux_scale(height_px, flux, visible, *, blur_px: float, model_height_px,
+                    model_fraction, max_height_px: float) -> float:
+    """The whole disc's flux in the recording's units, from the thin-segment frames.
+
+    Each frame with a segment between three blurs and ``max_height_px`` high gives
+    ``flux / (V(h) * blur share)``, with ``V(h)`` the model's visible fraction of the disc
+    at that apex height (``model_height_px`` -> ``model_fraction``, increasing); the
+    median of those is robust to shake and glitter.
+    """
+    h = np.asarray(height_px, dtype=float)
+    f = np.asarray(flux, dtype=float)
+    mh, mv = np.asarray(model_height_px, float), np.asarray(model_fraction, float)
+    ok_m = np.isfinite(mh) & np.isfinite(mv)
+    if np.count_nonzero(ok_m) < 3:
+        return float("nan")
+    lo = 3.0 * blur_px if np.isfinite(blur_px) else 3.0
+    sel = np.asarray(visible, bool) & np.isfinite(h) & (h > lo) & (h < max_height_px) & (f > 0)
+    if np.count_nonzero(sel) < 3:
+        return float("nan")
+    v = np.interp(h[sel], mh[ok_m], mv[ok_m], left=np.nan, right=np.nan)
+    v = v * blur_fraction_above(h[sel], blur_px if np.isfinite(blur_px) else 1.0)
+    ratio = f[sel] / v
+    ratio = ratio[np.isfinite(ratio) & (ratio > 0)]
+    return float(np.median(ratio)) if ratio.size >= 3 else float("nan")
+
+
 @dataclass(frozen=True)
 class Observables:
     """The sequence's observables (FOLDER-FORMAT.md's result.json "observables")."""
@@ -282,16 +364,29 @@ class Observables:
     colour_offset_dy_px: dict[str, float]
     colour_offset_source: str
     geometry: DiscGeometry
+    disc_flux: dict[str, float] = field(default_factory=dict)
+    blur_px: dict[str, float] = field(default_factory=dict)
     notes: tuple[str, ...] = field(default=())
 
 
 def sequence_observables(table: FrameTable, *, plate_scale_arcsec_per_px: float,
                          plate_scale_source: str, colour_offset_dy_px: dict[str, float],
-                         colour_offset_source: str, geometry: DiscGeometry) -> Observables:
-    """Last light per channel, green duration and green-above-red offset."""
+                         colour_offset_source: str, geometry: DiscGeometry,
+                         disc_flux: dict[str, float] | None = None) -> Observables:
+    """Last light per channel, green duration and green-above-red offset.
+
+    ``disc_flux`` (per channel, the whole disc's flux in the recording's units) makes
+    last light the moment the visible flux falls below the model's detection fraction
+    of the disc; without it, the moment it sinks into the noise.
+    """
     notes: list[str] = []
+    disc_flux = disc_flux or {}
+    blur = {c: float(np.nanmedian(table.edge_sigma_px[c]))
+            if np.any(np.isfinite(table.edge_sigma_px[c])) else float("nan") for c in CHANNELS}
     last = {c: last_light(table.t_unix_s, table.visible[c], table.flux[c], table.flux_err[c],
-                          channel=c) for c in CHANNELS}
+                          channel=c, disc_flux=disc_flux.get(c),
+                          height_px=table.apex_height_px[c], blur_px=blur[c])
+            for c in CHANNELS}
     for c, ll in last.items():
         if not np.isfinite(ll.t_unix_s):
             notes.append(f"last light of channel {c} not measurable: {ll.method}")
@@ -313,4 +408,4 @@ def sequence_observables(table: FrameTable, *, plate_scale_arcsec_per_px: float,
                      "as ratios between channels of one frame there")
     return Observables(last, float(duration), duration_err, offset, offset_err, used,
                        plate_scale_arcsec_per_px, plate_scale_source, colour_offset_dy_px,
-                       colour_offset_source, geometry, tuple(notes))
+                       colour_offset_source, geometry, dict(disc_flux), blur, tuple(notes))

@@ -25,6 +25,7 @@ from analyse.measure import (
     DiscGeometry,
     FrameTable,
     Observables,
+    disc_flux_scale,
     disc_geometry,
     sequence_observables,
 )
@@ -120,7 +121,7 @@ class _Columns:
         for c in CHANNELS:
             lm = limbs.get(c) if limbs else None
             for k in ("apex_height_px", "apex_height_err_px", "apex_x_px", "width_px",
-                      "height_px", "flux", "flux_err", "sky_level"):
+                      "height_px", "edge_sigma_px", "flux", "flux_err", "sky_level"):
                 row[f"{k}:{c}"] = getattr(lm, k) if lm is not None else np.nan
             row[f"visible:{c}"] = bool(lm.visible) if lm is not None else False
             row[f"saturated:{c}"] = bool(lm.saturated) if lm is not None else False
@@ -132,7 +133,8 @@ class _Columns:
         return FrameTable(
             col("t"), col("found", bool), col("row_px"), col("row_err_px"), col("roll_deg"),
             col("roll_err_deg"), per("apex_height_px"), per("apex_height_err_px"),
-            per("apex_x_px"), per("width_px"), per("height_px"), per("visible", bool), per("flux"),
+            per("apex_x_px"), per("width_px"), per("height_px"), per("edge_sigma_px"),
+            per("visible", bool), per("flux"),
             per("flux_err"), per("sky_level"), per("saturated", bool),
             tuple(r["flags"] for r in self.rows), tuple(r["source"] for r in self.rows))
 
@@ -271,6 +273,33 @@ def _colour_offsets(calib: dict | None, colour_dy: dict[str, list[float]], sun_x
     return dy | {"g": 0.0}, source
 
 
+def _disc_flux(obs, table: FrameTable, track, sd_arcsec: float, scale: float, dy,
+               calib) -> dict[str, float]:
+    """Each channel's whole-disc flux in the recording's units (see measure.disc_flux_scale).
+
+    The visible fraction against apex height comes from the forward model in the
+    standard atmosphere: near the horizon it is set mostly by the disc's geometry, so the
+    lapse rate matters little here (the fit redoes it per trial where it matters).
+    """
+    from analyse.infer import _conditions
+    from analyse.predict import build_model, light_by_height
+
+    if not np.isfinite(scale):
+        return {}
+    model = build_model(_conditions(obs), 6.5, bands=bands_for(calib, obs.camera.calibration),
+                        azimuth_deg=float(np.median(track.azimuth_deg)), rays=32,
+                        span_arcmin=20.0)
+    out = {}
+    for c in CHANNELS:
+        _, h, v = light_by_height(model, c, sd_arcsec)
+        sig = table.edge_sigma_px[c]
+        blur = float(np.nanmedian(sig)) if np.any(np.isfinite(sig)) else 1.0
+        out[c] = disc_flux_scale(table.apex_height_px[c] + dy.get(c, 0.0), table.flux[c],
+                                 table.visible[c], blur_px=blur, model_height_px=h / scale,
+                                 model_fraction=v, max_height_px=0.3 * sd_arcsec / scale)
+    return out
+
+
 def _observables(fs, obs, table: FrameTable, colour_dy, strip) -> Measurement:
     notes = list(fs.notes)
     calib = read_calibration(obs.camera.calibration)
@@ -295,8 +324,10 @@ def _observables(fs, obs, table: FrameTable, colour_dy, strip) -> Measurement:
         table.apex_x_px["g"])) else 0.5 * fs.width
     y_sun = float(np.nanmedian(table.horizon_row_px))
     dy, dy_source = _colour_offsets(calib, colour_dy, (x_sun, y_sun))
+    disc_flux = _disc_flux(obs, table, track, sd, scale, dy, calib)
     observables = sequence_observables(
         table, plate_scale_arcsec_per_px=scale, plate_scale_source=scale_source,
-        colour_offset_dy_px=dy, colour_offset_source=dy_source, geometry=geometry)
+        colour_offset_dy_px=dy, colour_offset_source=dy_source, geometry=geometry,
+        disc_flux=disc_flux)
     return Measurement(fs, table, observables, track.altitude_deg, sd, strip, calib,
                        tuple(notes) + observables.notes)

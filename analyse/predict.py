@@ -54,6 +54,8 @@ __all__ = [
     "visible_fraction",
     "limb_elevation_deg",
     "last_light_altitude_deg",
+    "horizon_elevation_deg",
+    "light_by_height",
     "Prediction",
     "predict_sunset",
 ]
@@ -235,6 +237,34 @@ def limb_elevation_deg(model: SunsetModel, channel: str, top_altitude_deg, *,
             e = np.where(np.isnan(e) & (a_top < ac[0]), ec[0] + slope * (a_top - ac[0]), e)
         rows.append(e)
     return np.sum(ch.weights[:, None] * np.stack(rows), axis=0)
+
+
+def horizon_elevation_deg(model: SunsetModel) -> float:
+    """Apparent elevation of the sea horizon as a camera's horizon line shows it [deg].
+
+    The green channel's horizon ray (the horizon line is found on green); the channels'
+    horizons differ by well under an arcsecond.
+    """
+    ch = model.channels.get("g") or next(iter(model.channels.values()))
+    return float(np.mean(model.curve.horizon.apparent_elevation_deg[ch.node_index]))
+
+
+def light_by_height(model: SunsetModel, channel: str, semidiameter_arcsec: float, *,
+                    points: int = 400, depth: float = 0.6):
+    """A channel's apex height above the horizon line and visible fraction, as the Sun sets.
+
+    Returns
+    -------
+    centre_altitude_deg, apex_height_arcsec, fraction : (points,) ndarray
+        From the limb just below the horizon (negative heights: extrapolated) up to the
+        centre ``depth`` semidiameters below the horizon ray.
+    """
+    hz = model.curve.horizon.true_altitude_deg[model.channels[channel].node_index]
+    sd = semidiameter_arcsec / 3600.0
+    a_c = np.linspace(hz.min() - sd - 2.0 / 3600.0, hz.max() - depth * sd, points)
+    h = (limb_elevation_deg(model, channel, a_c + sd, extrapolate=True)
+         - horizon_elevation_deg(model)) * 3600.0
+    return a_c, h, visible_fraction(model, channel, a_c, semidiameter_arcsec)
 
 
 def last_light_altitude_deg(model: SunsetModel, channel: str, semidiameter_arcsec: float,

@@ -35,21 +35,23 @@ def synthetic_measurement(gamma, *, fps=10.0, scale=2.0, noise_px=0.15, seed=0):
     n = t.size
     for c in CHANNELS:
         h = (limb_elevation_deg(model, c, tr.altitude_deg + sd / 3600) - e_hor) * 3600 / scale
-        f = 1e5 * visible_fraction(model, c, tr.altitude_deg, sd) + rng.normal(0, 2.0, n)
-        vis = f > 10.0
+        f = 1e5 * visible_fraction(model, c, tr.altitude_deg, sd) + rng.normal(0, 0.5, n)
+        vis = f > 2.5
         cols["apex"][c] = np.where(vis, h + rng.normal(0, noise_px, n), np.nan)
         cols["err"][c] = np.full(n, noise_px)
         cols["nan"][c] = np.full(n, np.nan)
-        cols["vis"][c], cols["flux"][c], cols["ferr"][c] = vis, f, np.full(n, 2.0)
+        cols["vis"][c], cols["flux"][c], cols["ferr"][c] = vis, f, np.full(n, 0.5)
         cols["sky"][c], cols["sat"][c] = np.full(n, 0.1), np.zeros(n, bool)
     table = FrameTable(t, np.ones(n, bool), np.full(n, 100.0), np.full(n, 0.05), np.zeros(n),
                        np.full(n, 0.01), cols["apex"], cols["err"], cols["nan"], cols["nan"], cols["nan"],
+                       {c: np.full(n, 1e-3) for c in CHANNELS},  # unblurred edges
                        cols["vis"], cols["flux"], cols["ferr"], cols["sky"], cols["sat"],
                        tuple(() for _ in range(n)), tuple(str(i) for i in range(n)))
     geometry = DiscGeometry(np.nan, np.nan, np.nan, np.nan, 0, "")
     ob = sequence_observables(table, plate_scale_arcsec_per_px=scale, plate_scale_source="test",
                               colour_offset_dy_px={"r": 0.0, "g": 0.0, "b": 0.0},
-                              colour_offset_source="test", geometry=geometry)
+                              colour_offset_source="test", geometry=geometry,
+                              disc_flux={c: 1e5 for c in CHANNELS})
     meas = types.SimpleNamespace(table=table, observables=ob, semidiameter_arcsec=sd)
     obs = Observation(Site(LAT, LON, EYE, "sea", None, None), Air(17.0, 1016.0, 0.75),
                       Camera(scale, None, None, None, 0.2, None), Model(100.0), None)

@@ -20,7 +20,7 @@ def test_last_light_is_interpolated_between_frames():
     t, vis, flux, err = fading_series()
     ll = last_light(t, vis, flux, err)
     true = 7.03 - (5.0 / 10.0) ** (2.0 / 3.0) / 2.0  # where 10 h^1.5 = 5 sigma
-    assert ll.method == "fading fit"
+    assert ll.method == "noise limit, fading fit"
     assert t[ll.last_visible_index] <= ll.t_unix_s <= t[ll.first_dark_index]
     assert abs(ll.t_unix_s - true) < 0.1  # within one frame interval (issue's requirement)
     assert 0.0 < ll.err_s <= 0.1 / np.sqrt(12.0) + 1e-12

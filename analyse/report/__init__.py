@@ -22,7 +22,13 @@ from pathlib import Path
 
 import numpy as np
 
-from analyse.infer import DRY_ADIABATIC_K_PER_KM, DUCTING_K_PER_KM, MIRAGE_K_PER_KM
+from analyse.infer import (
+    DRY_ADIABATIC_K_PER_KM,
+    DUCTING_K_PER_KM,
+    HEIGHT_CHANNELS,
+    MIRAGE_K_PER_KM,
+)
+from analyse.predict import DETECTION_FRACTION
 from analyse.measure import CHANNELS
 from analyse.observation import format_utc
 from analyse.report import figures as fg
@@ -301,7 +307,7 @@ def _fig_heights(m, curves, ref: _Reference) -> dict:
     sel = _window(t, HEIGHT_WINDOW_S)
     h = {c: np.where(tab.visible[c] & tab.horizon_found,
                      tab.apex_height_px[c] + ob.colour_offset_dy_px.get(c, 0.0), np.nan)[sel]
-         for c in CHANNELS}
+         for c in HEIGHT_CHANNELS}
     title = "Upper limb above the sea horizon"
     if not any(np.any(np.isfinite(v)) for v in h.values()):
         return _figure("a", title, "", None, "no limb height was measured near the end.")
@@ -309,13 +315,16 @@ def _fig_heights(m, curves, ref: _Reference) -> dict:
     if curves is not None:
         s = _window(curves.t_unix_s - ref.t_unix_s, HEIGHT_WINDOW_S)
         mt, mh = curves.t_unix_s[s] - ref.t_unix_s, {c: v[s] for c, v in
-                                                     curves.apex_height_px.items()}
+                                                     curves.apex_height_px.items()
+                                                     if c in HEIGHT_CHANNELS}
     png = fg.limb_heights_png(t[sel], h, arcsec_per_px=ob.plate_scale_arcsec_per_px,
                               time_label=ref.label, model_t_s=mt, model_height_px=mh)
     cap = ("Height of each colour channel's upper-limb apex above the sea-horizon line, per "
            "frame, corrected for the lens's vertical colour offset (source: "
            f"{ob.colour_offset_source}); arcsec from a plate scale of "
            f"{ob.plate_scale_arcsec_per_px:.3f} arcsec/px ({ob.plate_scale_source}).")
+    cap += (" Blue is left out: at sunset its limb is too faint to locate reliably, and the "
+            "fit does not use it.")
     cap += (" Lines: the best-fitting model on the camera's clock (fitted time offset and "
             "plate-scale correction applied); lower panel: measured minus model."
             if curves is not None else " No model is drawn: nothing was fitted.")
@@ -337,13 +346,17 @@ def _fig_flux(m, curves, ref: _Reference) -> dict:
               "model_flux": {c: v[s] for c, v in curves.flux.items()},
               "model_last_light_s": {c: v - ref.t_unix_s
                                      for c, v in curves.last_light_unix_s.items()}}
+    level = {c: (ob.disc_flux[c] * DETECTION_FRACTION
+                 if ob.last[c].method.startswith("fading fit to") else ob.last[c].threshold_flux)
+             for c in CHANNELS}
     png = fg.light_curves_png(
-        t[sel], flux, threshold={c: ob.last[c].threshold_flux for c in CHANNELS},
+        t[sel], flux, threshold=level,
         last_light_s={c: ob.last[c].t_unix_s - ref.t_unix_s for c in CHANNELS},
         time_label=ref.label, **kw)
     cap = ("Sky-subtracted linear flux of the Sun above the horizon per channel (logarithmic; "
            "frames with zero or negative flux cannot be drawn). Dashed: each channel's "
-           "detection threshold (5 times the flux noise); solid vertical: measured last "
+           f"detection level, {DETECTION_FRACTION:g} of the whole disc's flux (or, where the "
+           "disc is too faint for that, 5 times the flux noise); solid vertical: measured last "
            "light (" + ", ".join(f"{_NAMES[c]} by {ob.last[c].method}" for c in CHANNELS) + ").")
     cap += (" Lines and dotted verticals: the best-fitting model's visible flux, scaled to "
             "the recording, and its last light." if curves is not None else "")

@@ -241,22 +241,29 @@ def _sunset_folder(folder: Path) -> Path:
     return folder
 
 
-def _cmd_report(args: argparse.Namespace) -> int:
+def _folder_run(args: argparse.Namespace, suffix: str, needs: str):
+    """The sunset folder, its observation and the checked output folder of a command."""
     folder = _sunset_folder(args.folder)  # before the slow imports
     from analyse.observation import read_observation
-    from analyse.outfolder import atomic_folder, check_output, default_output
-    from analyse.infer import infer_lapse_rate, model_curves
-    from analyse.report import write_report_html
-    from analyse.pipeline import bands_for, measure_folder
-    from analyse.results import result_document, write_frames_ecsv, write_result_json
+    from analyse.outfolder import check_output, default_output
 
     toml = folder / "observation.toml"
     if not toml.is_file():
-        raise InputError("observation.toml is missing: report needs the site and air "
+        raise InputError(f"observation.toml is missing: {args.command} needs {needs} "
                          "(FOLDER-FORMAT.md)", folder)
     obs = read_observation(toml)
-    out = args.out if args.out is not None else default_output(folder, "report")
-    out = check_output(out, input_folder=folder, force=args.force)
+    out = args.out if args.out is not None else default_output(folder, suffix)
+    return folder, obs, check_output(out, input_folder=folder, force=args.force)
+
+
+def _cmd_report(args: argparse.Namespace) -> int:
+    folder, obs, out = _folder_run(args, "report", "the site and the air")
+    from analyse.infer import infer_lapse_rate, model_curves
+    from analyse.outfolder import atomic_folder
+    from analyse.pipeline import bands_for, measure_folder
+    from analyse.report import write_report_html
+    from analyse.results import result_document, write_frames_ecsv, write_result_json
+
     measurement = measure_folder(folder, obs, progress=not args.quiet)
     bands = bands_for(measurement.calibration, obs.camera.calibration)
     inference = infer_lapse_rate(measurement, obs, bands=bands, progress=not args.quiet)
@@ -281,20 +288,13 @@ def _site_words(obs) -> str:
 
 
 def _cmd_verify(args: argparse.Namespace) -> int:
-    folder = _sunset_folder(args.folder)  # before the slow imports
-    from analyse.observation import format_utc, read_observation
-    from analyse.outfolder import atomic_folder, check_output, default_output
+    folder, obs, out = _folder_run(args, "verify", "the site and the clock")
+    from analyse.observation import format_utc
+    from analyse.outfolder import atomic_folder
     from analyse.pipeline import measure_folder
     from analyse.verdict_page import write_verdict_html
     from analyse.verify import GAMMA_RANGE_K_PER_KM, verify_measurement
 
-    toml = folder / "observation.toml"
-    if not toml.is_file():
-        raise InputError("observation.toml is missing: verify needs the site and the clock "
-                         "(FOLDER-FORMAT.md)", folder)
-    obs = read_observation(toml)
-    out = args.out if args.out is not None else default_output(folder, "verify")
-    out = check_output(out, input_folder=folder, force=args.force)
     meas = measure_folder(folder, obs, progress=not args.quiet)
     verdict = verify_measurement(meas, obs)
     t = meas.table.t_unix_s

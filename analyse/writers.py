@@ -46,11 +46,8 @@ import csv
 import json
 import math
 import os
-import shutil
 from collections import deque
-from collections.abc import Iterator
 from concurrent.futures import Future, ThreadPoolExecutor
-from contextlib import contextmanager
 from datetime import datetime, timedelta, timezone
 from fractions import Fraction
 from pathlib import Path
@@ -63,13 +60,14 @@ from PIL import Image
 from PIL.TiffImagePlugin import IFDRational
 from tqdm import tqdm
 
+from analyse import outfolder
 from analyse.errors import InputError
 from analyse.observation import format_utc
 from analyse.scenario import read_scenario
 from analyse.simulate import FrameRecord, Simulation, iter_frames, prepare_simulation
 
 __all__ = [
-    "VIDEO_NAME", "truth_path", "check_output", "staged_folder", "StillWriter",
+    "VIDEO_NAME", "truth_path", "check_output", "StillWriter",
     "VideoWriter", "observation_toml", "truth_dict", "write_truth", "run_simulate",
 ]  # fmt: skip
 
@@ -98,37 +96,11 @@ def truth_path(out_folder: str | Path) -> Path:
 def check_output(out_folder: str | Path, *, force: bool = False) -> None:
     """Refuse to overwrite: an existing non-empty folder or truth file needs ``force``."""
     out = Path(out_folder)
-    if out.exists() and not out.is_dir():
-        raise InputError("output exists and is not a folder", out)
-    if out.is_dir() and any(out.iterdir()) and not force:
-        raise InputError("output folder exists and is not empty; use --force to replace it",
-                         out)
+    out.parent.mkdir(parents=True, exist_ok=True)
+    outfolder.check_output(out, input_folder=None, force=force, option="OUT_FOLDER")
     truth = truth_path(out)
     if truth.exists() and not force:
         raise InputError("truth file exists; use --force to replace it", truth)
-
-
-@contextmanager
-def staged_folder(out_folder: str | Path) -> Iterator[Path]:
-    """A hidden folder beside ``out_folder`` that replaces it when the block succeeds."""
-    out = Path(out_folder)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    stage = out.with_name(f".{out.name}.partial-{os.getpid()}")
-    if stage.exists():
-        shutil.rmtree(stage)
-    stage.mkdir()
-    try:
-        yield stage
-    except BaseException:
-        shutil.rmtree(stage, ignore_errors=True)
-        raise
-    if out.exists():
-        old = out.with_name(f".{out.name}.old-{os.getpid()}")
-        out.rename(old)
-        stage.rename(out)
-        shutil.rmtree(old, ignore_errors=True)
-    else:
-        stage.rename(out)
 
 
 class StillWriter:
@@ -312,7 +284,7 @@ def run_simulate(scenario_path: str | Path, out_folder: str | Path, *, force: bo
     fmt = scenario.output.format
     frames = tqdm(iter_frames(sim), total=sim.frame_times_unix_s.size, disable=quiet,
                   unit="frame", desc="simulate")
-    with staged_folder(out) as stage:
+    with outfolder.atomic_folder(out, force=force) as stage:
         if fmt == "h264":
             writer: StillWriter | VideoWriter = VideoWriter(
                 stage / VIDEO_NAME, scenario.camera.width_px, scenario.camera.height_px,

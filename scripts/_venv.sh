@@ -5,15 +5,20 @@ repo="$(cd "$(dirname "${BASH_SOURCE[0]}")/.." && pwd)"
 venv="$repo/.venv"
 py="${PYTHON:-python3}"
 if [ ! -x "$venv/bin/python" ]; then
+  echo "setting up $venv (first run: about a minute) ..."
   "$py" -m venv "$venv"
 fi
 stamp="$venv/.installed-${1:-base}"
 if [ ! -f "$stamp" ] || [ "$repo/pyproject.toml" -nt "$stamp" ]; then
-  "$venv/bin/python" -m pip install --quiet --disable-pip-version-check --upgrade pip >/dev/null 2>&1 || true
-  if [ -n "${1:-}" ]; then
-    "$venv/bin/python" -m pip install --quiet --disable-pip-version-check -e "$repo[$1]"
-  else
-    "$venv/bin/python" -m pip install --quiet --disable-pip-version-check -e "$repo"
+  log="$venv/pip-install.log"
+  target="$repo"
+  [ -n "${1:-}" ] && target="$repo[$1]"
+  if ! { "$venv/bin/python" -m pip install --disable-pip-version-check --upgrade pip \
+         && "$venv/bin/python" -m pip install --disable-pip-version-check -e "$target"; } \
+       >"$log" 2>&1; then
+    tail -n 30 "$log" >&2
+    echo "installing limbtrace into $venv failed; the whole log: $log" >&2
+    exit 1
   fi
   touch "$stamp"
 fi

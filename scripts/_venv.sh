@@ -13,9 +13,10 @@ if [ ! -f "$stamp" ] || [ "$repo/pyproject.toml" -nt "$stamp" ]; then
   log="$venv/pip-install.log"
   target="$repo"
   [ -n "${1:-}" ] && target="$repo[$1]"
-  if ! { "$venv/bin/python" -m pip install --disable-pip-version-check --upgrade pip \
-         && "$venv/bin/python" -m pip install --disable-pip-version-check -e "$target"; } \
-       >"$log" 2>&1; then
+  "$venv/bin/python" -m pip install --disable-pip-version-check --upgrade pip >"$log" 2>&1 \
+    || true  # an old pip still installs the wheels
+  if ! "$venv/bin/python" -m pip install --disable-pip-version-check -e "$target" \
+       >>"$log" 2>&1; then
     tail -n 30 "$log" >&2
     echo "installing limbtrace into $venv failed; the whole log: $log" >&2
     exit 1

@@ -129,9 +129,16 @@ def _cmd_predict(args: argparse.Namespace) -> int:
     _check_lapse_rate(args.lapse_rate)
     pred = predict_sunset(cond, args.date, args.lapse_rate, detection_fraction=frac)
     if args.json:
-        print(json.dumps(_prediction_json(pred, format_utc), indent=1))
+        from analyse._offline import offline_notes
+
+        doc = _prediction_json(pred, format_utc) | {"notes": offline_notes()}
+        print(json.dumps(doc, indent=1))
         return 0
     print(_prediction_text(obs, cond, args.date, pred, format_utc))
+    from analyse._offline import offline_notes
+
+    for note in offline_notes():
+        print(f"  note: {note}")
     return 0
 
 

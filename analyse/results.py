@@ -40,7 +40,9 @@ def result_document(measurement, inference=None, *, layer_top_m: float,
     """Build result.json's content from a Measurement and an optional inference result."""
     ob = measurement.observables
     last = ob.last
-    notes = list(measurement.notes) + list(extra_notes)
+    from analyse._offline import offline_notes
+
+    notes = list(measurement.notes) + list(extra_notes) + offline_notes()
     doc: dict[str, Any] = {
         "schema": SCHEMA,
         "observables": {

@@ -612,7 +612,9 @@ def _flag_counts(table) -> list[tuple[str, int]]:
 
 
 def _notes(m, inf) -> list[str]:
-    return list(dict.fromkeys([*m.notes, *inf.notes]))
+    from analyse._offline import offline_notes
+
+    return list(dict.fromkeys([*m.notes, *inf.notes, *offline_notes()]))
 
 
 def _version() -> str:

@@ -131,13 +131,13 @@ def _cmd_predict(args: argparse.Namespace) -> int:
     if args.json:
         from analyse._offline import offline_notes
 
-        doc = _prediction_json(pred, format_utc) | {"notes": offline_notes()}
+        doc = _prediction_json(pred, format_utc) | {"notes": [*pred.notes, *offline_notes()]}
         print(json.dumps(doc, indent=1))
         return 0
     print(_prediction_text(obs, cond, args.date, pred, format_utc))
     from analyse._offline import offline_notes
 
-    for note in offline_notes():
+    for note in [*pred.notes, *offline_notes()]:
         print(f"  note: {note}")
     return 0
 
@@ -159,7 +159,8 @@ def _prediction_json(pred, format_utc) -> dict:
         "dip_arcmin": _round(pred.dip_arcmin.get("g", next(iter(pred.dip_arcmin.values()))), 3),
         "horizon_refraction_arcmin": {k: _round(v, 3)
                                       for k, v in pred.horizon_refraction_arcmin.items()},
-        "last_light_utc": {k: format_utc(v) for k, v in pred.last_light_unix_s.items()},
+        "last_light_utc": {k: format_utc(v) if v == v else None
+                           for k, v in pred.last_light_unix_s.items()},
         "green_duration_s": _round(pred.green_duration_s, 3),
         "rg_offset_arcsec": _round(pred.rg_offset_arcsec, 2),
         "detection_fraction": pred.detection_fraction,
@@ -184,10 +185,12 @@ def _prediction_text(obs, cond, date: str, pred, format_utc) -> str:
         f"  dip of the horizon  {pred.dip_arcmin['g']:.2f} arcmin",
         "  horizon refraction  " + "  ".join(f"{k} {v:.2f}'" for k, v in
                                              pred.horizon_refraction_arcmin.items()),
-        "  last light (UTC)    " + "  ".join(f"{k} {format_utc(v)[11:-1]}"
-                                             for k, v in last.items()),
-        f"  green segment       {pred.green_duration_s:.2f} s; green limb "
-        f"{pred.rg_offset_arcsec:.1f} arcsec above red (median of the last minute)",
+        "  last light (UTC)    " + "  ".join(
+            f"{k} {format_utc(v)[11:-1] if v == v else 'not defined'}" for k, v in last.items()),
+        "  green segment       " + (
+            f"{pred.green_duration_s:.2f} s; green limb {pred.rg_offset_arcsec:.1f} arcsec "
+            "above red (median of the last minute)" if pred.green_duration_s == pred.green_duration_s
+            else "not defined"),
         f"  detection level     {pred.detection_fraction:g} of the whole disc's flux",
         "  colour channels     " + "; ".join(f"{n}: {ch.band.description}"
                                              for n, ch in pred.model.channels.items()),
@@ -363,6 +366,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print(f"{PROG}: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # output piped into a program that stopped reading (head)
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
     except Exception as exc:  # a bug: say so plainly, the traceback only on request
         print(f"{PROG}: internal error ({type(exc).__name__}: {exc}); this is a bug. "
               "Set LIMBTRACE_DEBUG=1 to see the traceback.", file=sys.stderr)

@@ -297,6 +297,7 @@ class Prediction:
     semidiameter_arcsec: float
     sunset_azimuth_deg: float
     model: SunsetModel = field(repr=False)
+    notes: tuple[str, ...] = ()
 
 
 def _channel_mean(model: SunsetModel, values: np.ndarray) -> dict[str, float]:
@@ -332,17 +333,26 @@ def predict_sunset(conditions: Conditions, date_iso: str, lapse_rate_K_per_km: f
                         azimuth_deg=float(sun0.azimuth_deg[0]), atmosphere=atmosphere)
     sd = float(sun0.semidiameter_arcsec[0])
     a_last = {n: last_light_altitude_deg(model, n, sd, detection_fraction) for n in model.channels}
-    names = list(a_last)
-    t_last = time_of_altitude(np.array([a_last[n] for n in names]), t0,
-                              c.latitude_deg, c.longitude_deg, c.eye_height_m)
-    last = dict(zip(names, (float(t) for t in np.atleast_1d(t_last))))
+    finite = [n for n in a_last if np.isfinite(a_last[n])]
+    last = {n: float("nan") for n in a_last}
+    if finite:
+        t_last = time_of_altitude(np.array([a_last[n] for n in finite]), t0,
+                                  c.latitude_deg, c.longitude_deg, c.eye_height_m)
+        last.update(zip(finite, (float(t) for t in np.atleast_1d(t_last))))
+    notes = []
+    if len(finite) < len(a_last) or model.curve.horizon.method == "search":
+        notes.append("rays near the horizon are trapped in a duct at this lapse rate: the sea "
+                     "horizon and last light are not defined by this single-layer model "
+                     "(superior mirages and ducted images expected)")
     hz = model.curve.horizon
     green = last.get("g", np.nan) - last.get("r", np.nan)
-    offset = _rg_offset_arcsec(model, last, c) if {"r", "g"} <= set(last) else np.nan
+    offset = (_rg_offset_arcsec(model, last, c)
+              if np.isfinite(last.get("r", np.nan)) and "g" in last else np.nan)
     return Prediction(float(lapse_rate_K_per_km), c.layer_top_m,
                       _channel_mean(model, hz.dip_arcmin),
                       _channel_mean(model, hz.refraction_arcmin), last, float(green),
-                      float(offset), detection_fraction, sd, float(sun0.azimuth_deg[0]), model)
+                      float(offset), detection_fraction, sd, float(sun0.azimuth_deg[0]), model,
+                      tuple(notes))
 
 
 def _rg_offset_arcsec(model: SunsetModel, last: dict[str, float], c: Conditions) -> float:

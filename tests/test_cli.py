@@ -120,3 +120,14 @@ def test_console_script_exit_status(tmp_path):
                            str(tmp_path / "x.toml"), "--date", "2026-06-21"],
                           capture_output=True, text=True, timeout=120)
     assert proc.returncode == 2 and proc.stderr.startswith("limbtrace: error:")
+
+
+def test_predict_in_a_duct_says_so_instead_of_failing(tmp_path, capsys):
+    # -130 K/km is past the ducting threshold (ray curvature equal to the Earth's near
+    # -127 K/km, DESIGN.md): the horizon ray is trapped, last light is not defined.
+    code, out, err = run(capsys, "predict", str(write_obs(tmp_path)), "--date", "2026-06-21",
+                         "--lapse-rate", "-130", "--json")
+    doc = json.loads(out)
+    assert code == 0, err
+    assert doc["green_duration_s"] is None and doc["last_light_utc"]["g"] is None
+    assert any("duct" in n for n in doc["notes"])

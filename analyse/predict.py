@@ -333,14 +333,15 @@ def predict_sunset(conditions: Conditions, date_iso: str, lapse_rate_K_per_km: f
                         azimuth_deg=float(sun0.azimuth_deg[0]), atmosphere=atmosphere)
     sd = float(sun0.semidiameter_arcsec[0])
     a_last = {n: last_light_altitude_deg(model, n, sd, detection_fraction) for n in model.channels}
-    finite = [n for n in a_last if np.isfinite(a_last[n])]
+    ducted = model.curve.horizon.method == "search"
+    finite = [] if ducted else [n for n in a_last if np.isfinite(a_last[n])]
     last = {n: float("nan") for n in a_last}
     if finite:
         t_last = time_of_altitude(np.array([a_last[n] for n in finite]), t0,
                                   c.latitude_deg, c.longitude_deg, c.eye_height_m)
         last.update(zip(finite, (float(t) for t in np.atleast_1d(t_last))))
     notes = []
-    if len(finite) < len(a_last) or model.curve.horizon.method == "search":
+    if len(finite) < len(a_last):
         notes.append("rays near the horizon are trapped in a duct at this lapse rate: the sea "
                      "horizon and last light are not defined by this single-layer model "
                      "(superior mirages and ducted images expected)")

@@ -307,8 +307,12 @@ def disc_geometry(apex_height_px, width_px) -> DiscGeometry:
     jac = np.array([[f / 8.0 / scale, p1 / 8.0 * df_dp2 / scale**2],
                     [0.0, df_dp2 / scale**2]])
     cov_rf = jac @ cov @ jac.T
-    return DiscGeometry(float(rx), float(np.sqrt(max(cov_rf[0, 0], 0.0))), float(f),
-                        float(np.sqrt(max(cov_rf[1, 1], 0.0))), h.size, "")
+    rx_err, f_err = (float(np.sqrt(max(v, 0.0))) for v in (cov_rf[0, 0], cov_rf[1, 1]))
+    if not (0.5 <= f <= 1.1 and f_err < 0.05 and rx_err < 0.02 * rx):
+        return DiscGeometry(np.nan, np.nan, np.nan, np.nan, h.size,
+                            f"chords span too little of the disc's height (flattening "
+                            f"{f:.2f} +- {f_err:.2f})")
+    return DiscGeometry(float(rx), rx_err, float(f), f_err, h.size, "")
 
 
 def exposure_changes(sky_level: np.ndarray, *, jump: float = 0.15) -> np.ndarray:

@@ -24,13 +24,16 @@ from __future__ import annotations
 import calendar
 import csv
 import math
+import queue
 import re
+import threading
 from collections.abc import Iterator, Mapping
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from fractions import Fraction
 from pathlib import Path
 
+import cv2
 import numpy as np
 
 from analyse import _stills, _video
@@ -229,10 +232,12 @@ def open_frames(folder: str | Path, *, video_start_utc: float | str | datetime |
 
 
 def iter_frames(frameset: FrameSet, *, roi: tuple[int, int, int, int] | None = None,
-                on_error: str = "raise") -> Iterator[tuple[FrameInfo, np.ndarray | None]]:
+                on_error: str = "raise", prefetch: int = 0
+                ) -> Iterator[tuple[FrameInfo, np.ndarray | None]]:
     """Decode the frames one at a time, in recording order, as linear-light RGB.
 
-    Nothing is kept between frames: memory does not grow with their number.
+    Nothing is kept between frames: memory does not grow with their number (at most
+    ``prefetch`` + 2 frames are held).
 
     Parameters
     ----------
@@ -243,6 +248,12 @@ def iter_frames(frameset: FrameSet, *, roi: tuple[int, int, int, int] | None = N
     on_error : {"raise", "skip"}
         For a frame that cannot be decoded: raise InputError naming it, or yield
         ``(info, None)`` and go on.
+    prefetch : int
+        Decode and linearise up to this many frames ahead in a background thread, so
+        that decoding (FFmpeg and OpenCV release the GIL) overlaps the caller's work on
+        the previous frame; 0 decodes in the caller's thread. Errors are raised to the
+        caller at the frame where they occur; closing the iterator early stops the
+        thread.
 
     Yields
     ------
@@ -253,6 +264,11 @@ def iter_frames(frameset: FrameSet, *, roi: tuple[int, int, int, int] | None = N
     """
     if on_error not in ("raise", "skip"):
         raise ValueError(f"on_error must be 'raise' or 'skip', got {on_error!r}")
+    if prefetch < 0:
+        raise ValueError(f"prefetch must be >= 0 frames, got {prefetch!r}")
+    if prefetch:
+        yield from _prefetched(iter_frames(frameset, roi=roi, on_error=on_error), prefetch)
+        return
     roi = _check_roi(roi, frameset.height, frameset.width)
     lut = _linear_lut(frameset.bit_depth)
     if frameset.kind == "video":
@@ -263,7 +279,7 @@ def iter_frames(frameset: FrameSet, *, roi: tuple[int, int, int, int] | None = N
                     raise InputError(f"{infos[k].source}: {problem}", frameset.files[0])
                 yield infos[k], None
             else:
-                yield infos[k], lut[rgb]
+                yield infos[k], _linearise(lut, rgb)
         return
     for info, path in zip(frameset.infos, frameset.files):
         try:
@@ -274,7 +290,7 @@ def iter_frames(frameset: FrameSet, *, roi: tuple[int, int, int, int] | None = N
                 raise
             yield info, None
             continue
-        yield info, lut[rgb]
+        yield info, _linearise(lut, rgb)
 
 
 # --- folder scanning and time sources ----------------------------------------------
@@ -454,6 +470,58 @@ def _linear_lut(bit_depth: int) -> np.ndarray:
     levels = 2 ** bit_depth
     codes = np.arange(levels, dtype=np.float64) / (levels - 1)
     return srgb_to_linear(codes).astype(np.float32)
+
+
+def _linearise(lut: np.ndarray, codes: np.ndarray) -> np.ndarray:
+    """``lut[codes]``: OpenCV's table lookup for 8-bit codes (the same values, about three
+    times faster, and without the GIL), numpy indexing for 16-bit ones."""
+    if codes.dtype == np.uint8 and lut.size == 256:
+        return cv2.LUT(codes, lut)
+    return lut[codes]
+
+
+def _prefetched(source: Iterator, depth: int) -> Iterator:
+    """The items of ``source``, produced in a background thread at most ``depth`` ahead.
+
+    Exceptions raised by ``source`` are raised here, in order; leaving the loop early
+    stops and joins the thread.
+    """
+    slots: queue.Queue = queue.Queue(maxsize=depth)
+    stop = threading.Event()
+
+    def put(item: tuple) -> bool:
+        while not stop.is_set():
+            try:
+                slots.put(item, timeout=0.05)
+                return True
+            except queue.Full:
+                continue
+        return False
+
+    def produce() -> None:
+        try:
+            for item in source:
+                if not put(("item", item)):
+                    return
+            put(("end", None))
+        except BaseException as exc:  # handed to the consumer, raised there
+            put(("error", exc))
+        finally:
+            source.close()
+
+    worker = threading.Thread(target=produce, name="limbtrace-decode", daemon=True)
+    worker.start()
+    try:
+        while True:
+            kind, value = slots.get()
+            if kind == "end":
+                return
+            if kind == "error":
+                raise value
+            yield value
+    finally:
+        stop.set()
+        worker.join()
 
 
 def _check_roi(roi: tuple[int, int, int, int] | None, height: int, width: int

@@ -1,16 +1,29 @@
 """The measuring run: frames -> registered horizon -> per-channel limbs -> observables.
 
-This is the one place that loops over frames. Each frame is read, its sea horizon found
-(with the previous frame's line as a prior), the Sun located, and the limbs measured on
-a crop around the Sun, so that the cost per frame is set by the Sun's size, not the
-frame's. Frames stream through: memory stays flat in the recording's length (only
-small crops of the final seconds are kept, for the report's strip).
+This is the one place that loops over frames. Each frame is read, the Sun located
+(:func:`analyse.limb.locate_sun`, on the whole frame: its first guess sets the box in which
+the limbs' flux is summed and where their fits start, so a guess carried over from an
+earlier frame would change the results), its sea horizon found (with the previous
+frame's line as a prior, which confines the search to a band), and the limbs measured
+on a crop around the Sun, so that the cost of the limb fits is set by the Sun's size, not
+the frame's.
+
+Speed (scripts/bench_measure.py): frames are decoded and linearised a few frames ahead
+in a background thread, while this thread measures the previous one. The lens's colour
+offsets on the horizon, which only feed a median, are measured on every frame of a short
+recording and on every few frames of a long one (at least :data:`_COLOUR_SAMPLES`
+frames). The limb fits (:func:`analyse.limb.measure_limbs`) take most of the time.
+
+Frames stream through: memory stays flat in the recording's length. Only the per-frame
+table grows (a few hundred bytes a frame) and small crops of the final visible frames are
+kept, for the report's strip.
 """
 
 from __future__ import annotations
 
 import collections
 import dataclasses
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -38,6 +51,12 @@ _STRIP_KEEP = 48  # crops of the final visible frames kept for the report
 _CROP_HALF_WIDTH_PX = 90
 _CROP_ABOVE_PX = 48
 _CROP_BELOW_PX = 16
+_PREFETCH_FRAMES = 1  # frames decoded ahead in a background thread (each 24 MB at 1080p)
+# The horizon's colour offsets scatter by about 0.12-0.18 px (r) from frame to frame
+# (measured on the demo folder and on 1080p H.264), so a median of 300 frames is good to
+# about 0.01 px; fewer samples would add more than the rg offset's own error.
+_COLOUR_SAMPLES = 300  # fewest frames whose horizon colour offsets feed the median ...
+_COLOUR_STRIDE_MAX = 10  # ... measured on every frame up to every 10th frame
 
 
 @dataclass(frozen=True)
@@ -107,36 +126,73 @@ def _crop_box(sun: lb.SunLocation, line: hz.HorizonLine, shape) -> tuple[int, in
     return y0, y1, x0, x1
 
 
-class _Columns:
-    """Accumulates the per-frame table row by row."""
+_LINE_KEYS = ("row_px", "row_err_px", "roll_deg", "roll_err_deg")
+_LIMB_KEYS = ("apex_height_px", "apex_height_err_px", "apex_x_px", "width_px", "height_px",
+              "edge_sigma_px", "flux", "flux_err", "sky_level")
 
-    def __init__(self) -> None:
-        self.rows: list[dict] = []
+
+class _Columns:
+    """Accumulates the per-frame table row by row, in arrays sized for ``n`` frames."""
+
+    def __init__(self, n: int) -> None:
+        self.n = 0
+        self.t = np.full(n, np.nan)
+        self.found = np.zeros(n, bool)
+        self.line = {k: np.full(n, np.nan) for k in _LINE_KEYS}
+        self.limb = {(k, c): np.full(n, np.nan) for k in _LIMB_KEYS for c in CHANNELS}
+        self.visible = {c: np.zeros(n, bool) for c in CHANNELS}
+        self.saturated = {c: np.zeros(n, bool) for c in CHANNELS}
+        self.flags: list[tuple[str, ...]] = []
+        self.sources: list[str] = []
+
+    def _grow(self) -> None:
+        """Twice the room (only if a reader yields more frames than it announced)."""
+        for group in (self.line, self.limb, self.visible, self.saturated):
+            for k, v in group.items():
+                group[k] = np.concatenate([v, np.zeros_like(v) if v.dtype == bool
+                                           else np.full_like(v, np.nan)])
+        self.t = np.concatenate([self.t, np.full_like(self.t, np.nan)])
+        self.found = np.concatenate([self.found, np.zeros_like(self.found)])
 
     def add(self, info, line, limbs, flags) -> None:
-        row = {"t": info.t_unix_s, "source": info.source, "flags": tuple(flags),
-               "found": bool(line is not None and line.found)}
-        for k in ("row_px", "row_err_px", "roll_deg", "roll_err_deg"):
-            row[k] = getattr(line, k) if row["found"] else np.nan
+        if self.n == self.t.size:
+            self._grow()
+        i, self.n = self.n, self.n + 1
+        self.t[i] = info.t_unix_s
+        self.sources.append(info.source)
+        self.flags.append(tuple(flags))
+        self.found[i] = bool(line is not None and line.found)
+        if self.found[i]:
+            for k in _LINE_KEYS:
+                self.line[k][i] = getattr(line, k)
         for c in CHANNELS:
             lm = limbs.get(c) if limbs else None
-            for k in ("apex_height_px", "apex_height_err_px", "apex_x_px", "width_px",
-                      "height_px", "edge_sigma_px", "flux", "flux_err", "sky_level"):
-                row[f"{k}:{c}"] = getattr(lm, k) if lm is not None else np.nan
-            row[f"visible:{c}"] = bool(lm.visible) if lm is not None else False
-            row[f"saturated:{c}"] = bool(lm.saturated) if lm is not None else False
-        self.rows.append(row)
+            if lm is None:
+                continue
+            for k in _LIMB_KEYS:
+                self.limb[k, c][i] = getattr(lm, k)
+            self.visible[c][i] = bool(lm.visible)
+            self.saturated[c][i] = bool(lm.saturated)
 
     def table(self) -> FrameTable:
-        col = lambda k, dt=float: np.array([r[k] for r in self.rows], dtype=dt)  # noqa: E731
-        per = lambda k, dt=float: {c: col(f"{k}:{c}", dt) for c in CHANNELS}  # noqa: E731
+        n = self.n
+        line = {k: v[:n].copy() for k, v in self.line.items()}
+        per = lambda k: {c: self.limb[k, c][:n].copy() for c in CHANNELS}  # noqa: E731
         return FrameTable(
-            col("t"), col("found", bool), col("row_px"), col("row_err_px"), col("roll_deg"),
-            col("roll_err_deg"), per("apex_height_px"), per("apex_height_err_px"),
-            per("apex_x_px"), per("width_px"), per("height_px"), per("edge_sigma_px"),
-            per("visible", bool), per("flux"),
-            per("flux_err"), per("sky_level"), per("saturated", bool),
-            tuple(r["flags"] for r in self.rows), tuple(r["source"] for r in self.rows))
+            self.t[:n].copy(), self.found[:n].copy(), line["row_px"], line["row_err_px"],
+            line["roll_deg"], line["roll_err_deg"], per("apex_height_px"),
+            per("apex_height_err_px"), per("apex_x_px"), per("width_px"), per("height_px"),
+            per("edge_sigma_px"), {c: v[:n].copy() for c, v in self.visible.items()},
+            per("flux"), per("flux_err"), per("sky_level"),
+            {c: v[:n].copy() for c, v in self.saturated.items()},
+            tuple(self.flags), tuple(self.sources))
+
+
+def _sun_columns(sun: lb.SunLocation) -> tuple[float, float] | None:
+    """Columns of the Sun and its glitter, left out of the horizon's fits [px]."""
+    if not sun.found:
+        return None
+    return sun.x_px - 1.3 * sun.radius_px - 10, sun.x_px + 1.3 * sun.radius_px + 10
 
 
 def _measure_frame(img, prior, sun_prior):
@@ -145,9 +201,7 @@ def _measure_frame(img, prior, sun_prior):
     sun = lb.locate_sun(img, prior if prior is not None and prior.found else None)
     if not sun.found and sun_prior is not None:
         sun = sun_prior
-    exclude = None
-    if sun.found:
-        exclude = (sun.x_px - 1.3 * sun.radius_px - 10, sun.x_px + 1.3 * sun.radius_px + 10)
+    exclude = _sun_columns(sun)
     line = hz.find_horizon(img, exclude_x=exclude, prior=prior)
     if not line.found and prior is not None:
         line = hz.find_horizon(img, exclude_x=exclude)
@@ -203,40 +257,66 @@ def measure_folder(folder: Path, obs: Observation, *, progress: bool = True) -> 
     """
     fs = open_frames(folder, video_start_utc=obs.camera.video_start_utc,
                      clock_utc_offset_h=obs.camera.clock_utc_offset_h)
-    cols = _Columns()
-    strip: collections.deque = collections.deque(maxlen=_STRIP_KEEP)
-    after_dark = 0
-    colour_dy: dict[str, list[float]] = {"r": [], "b": []}
-    prior = sun_prior = None
     with _progress(len(fs.infos), progress, "measuring frames") as bar:
-        for info, img in iter_frames(fs, on_error="skip"):
-            bar.update(1)
-            if img is None:
-                cols.add(info, None, {}, ["unreadable"])
-                continue
-            line, sun, limbs, flags, box = _measure_frame(img, prior, sun_prior)
-            if box is not None:  # apex columns back in frame coordinates
-                limbs = {c: dataclasses.replace(lm, apex_x_px=lm.apex_x_px + box[2])
-                         for c, lm in limbs.items()}
-            cols.add(info, line, limbs, flags)
-            if line.found:
-                prior = line
-                offs = hz.horizon_colour_offsets(img, line, exclude_x=(
-                    sun.x_px - 1.3 * sun.radius_px - 10, sun.x_px + 1.3 * sun.radius_px + 10)
-                    if sun.found else None)
-                for c in colour_dy:
-                    if np.isfinite(offs.get(c, np.nan)):
-                        colour_dy[c].append(float(offs[c]))
-            if sun.found:
-                sun_prior = sun
-            visible = any(lm.visible for lm in limbs.values())
-            after_dark = 0 if visible else after_dark + 1
-            if box is not None and after_dark <= 3:
-                s = _strip_crop(img, line, limbs, info)
-                if s is not None:
-                    strip.append(s)
-    table = cols.table()
-    return _observables(fs, obs, table, colour_dy, tuple(strip))
+        res = _measure_frames(fs, lambda: bar.update(1))
+    return _observables(fs, obs, res.cols.table(), res.colour_dy, tuple(res.strip))
+
+
+class _Results:
+    """The per-frame table, the strip and the colour offsets, added in frame order."""
+
+    def __init__(self, n: int) -> None:
+        self.cols = _Columns(n)
+        self.strip: collections.deque = collections.deque(maxlen=_STRIP_KEEP)
+        self.after_dark = 0
+        self.colour_dy: dict[str, list[float]] = {"r": [], "b": []}
+
+    def add_colour(self, offs: dict[str, float]) -> None:
+        for c in self.colour_dy:
+            if np.isfinite(offs.get(c, np.nan)):
+                self.colour_dy[c].append(float(offs[c]))
+
+    def add(self, info, img, line, limbs, flags, box) -> None:
+        if box is not None:  # apex columns back in frame coordinates
+            limbs = {c: dataclasses.replace(lm, apex_x_px=lm.apex_x_px + box[2])
+                     for c, lm in limbs.items()}
+        self.cols.add(info, line, limbs, flags)
+        visible = any(lm.visible for lm in limbs.values())
+        self.after_dark = 0 if visible else self.after_dark + 1
+        if box is not None and self.after_dark <= 3:
+            s = _strip_crop(img, line, limbs, info)
+            if s is not None:
+                self.strip.append(s)
+
+
+def _colour_stride(n_frames: int) -> int:
+    """Measure the horizon's colour offsets on every k-th frame with a horizon."""
+    return max(1, min(_COLOUR_STRIDE_MAX, n_frames // _COLOUR_SAMPLES))
+
+
+def _measure_frames(fs: FrameSet, tick: Callable[[], object], *,
+                    colour_stride: int | None = None,
+                    prefetch: int = _PREFETCH_FRAMES) -> _Results:
+    """The frame loop; ``tick`` is called once per frame (a progress bar)."""
+    res = _Results(len(fs.infos))
+    stride = colour_stride or _colour_stride(len(fs.infos))
+    prior = sun_prior = None
+    lines = 0
+    for info, img in iter_frames(fs, on_error="skip", prefetch=prefetch):
+        tick()
+        if img is None:
+            res.cols.add(info, None, {}, ["unreadable"])
+            continue
+        line, sun, limbs, flags, box = _measure_frame(img, prior, sun_prior)
+        res.add(info, img, line, limbs, flags, box)
+        if line.found:
+            if lines % stride == 0:
+                res.add_colour(hz.horizon_colour_offsets(img, line,
+                                                         exclude_x=_sun_columns(sun)))
+            prior, lines = line, lines + 1
+        if sun.found:
+            sun_prior = sun
+    return res
 
 
 def _plate_scale(obs: Observation, calib: dict | None, geometry: DiscGeometry,

@@ -5,10 +5,10 @@ compared with every observable together:
 
 * per channel, the upper limb's height above the sea horizon against time over the
   final minute (the offset between channels is contained in it);
-* per channel, the last-light time. Like is compared with like: the model's last light
-  uses the *measured* detection level, found by scaling the model's visible-flux
-  fraction to the measured flux as a function of the limb's height (a relation free of
-  the clock), then applying the measured threshold;
+* per channel, the last-light time. Like is compared with like: measurement and model
+  both put last light where the visible flux falls below the model's detection fraction
+  of the whole disc (:mod:`analyse.measure`); channels whose disc is too faint for that
+  (only a noise limit measured, usually blue) are left out;
 
 A common time offset ``delta`` (camera clock error, plus the time the eye height's and
 the lens air's uncertainty shift the horizon by) enters every time-dependent residual.
@@ -39,7 +39,6 @@ from analyse.predict import (
     build_models,
     horizon_elevation_deg,
     last_light_altitude_deg,
-    light_by_height,
     limb_elevation_deg,
     visible_fraction,
 )
@@ -76,11 +75,6 @@ class _Data:
     h_bins: dict[str, np.ndarray]  # (B,) limb height above the horizon [arcsec]
     h_err: dict[str, np.ndarray]
     last: dict[str, tuple[float, float]]  # measured last light (t, err) [s]
-    thin_h: dict[str, np.ndarray]  # heights [arcsec] and fluxes of low, significant frames
-    thin_f: dict[str, np.ndarray]
-    threshold: dict[str, float]  # detection threshold, flux units
-    blur_arcsec: dict[str, float]  # Gaussian sigma of the limb's edge [arcsec]
-    at_fraction: dict[str, bool]  # last light measured at DETECTION_FRACTION of the disc
     disc_flux: dict[str, float]  # the whole disc's flux in the recording's units
 
 
@@ -192,15 +186,12 @@ def _prepare(measurement) -> _Data:
     tab = measurement.table
     scale = ob.plate_scale_arcsec_per_px
     sd = measurement.semidiameter_arcsec
-    t_bins, h_bins, h_err, last, thin_h, thin_f, thr, blur = {}, {}, {}, {}, {}, {}, {}, {}
-    at_fraction = {}
+    t_bins, h_bins, h_err, last, blur = {}, {}, {}, {}, {}
     for c in CHANNELS:
         ll = ob.last[c]
         if not np.isfinite(ll.t_unix_s) or not ll.method.startswith("fading fit to"):
             continue  # a noise-limited last light depends on the camera, not the air
         last[c] = (ll.t_unix_s, float(np.hypot(ll.err_s, LAST_LIGHT_FLOOR_S)))
-        thr[c] = ll.threshold_flux
-        at_fraction[c] = ll.method.startswith("fading fit to")
         sig = tab.edge_sigma_px[c][np.isfinite(tab.edge_sigma_px[c])]
         blur[c] = float(np.median(sig) if sig.size else DEFAULT_BLUR_PX) * scale
         h = (tab.apex_height_px[c] + ob.colour_offset_dy_px.get(c, 0.0)) * scale
@@ -215,11 +206,7 @@ def _prepare(measurement) -> _Data:
         per_frame = np.maximum(per_frame, 0.05 * scale)  # floor: 0.05 px (common practice, no source)
         t_bins[c], h_bins[c], h_err[c], _ = _bin_heights(t, hh, per_frame)
         h_err[c] = np.hypot(h_err[c], MODEL_FLOOR_ARCSEC)
-        sig = tab.flux[c] / np.where(tab.flux_err[c] > 0, tab.flux_err[c], np.nan)
-        low = base & (sig > 10.0) & (h < 0.3 * sd)
-        thin_h[c], thin_f[c] = h[low], tab.flux[c][low]
-    return _Data(t_bins, h_bins, h_err, last, thin_h, thin_f, thr, blur, at_fraction,
-                 dict(ob.disc_flux))
+    return _Data(t_bins, h_bins, h_err, last, dict(ob.disc_flux))
 
 
 class _SunInterp:
@@ -243,38 +230,6 @@ class _SunInterp:
         return np.interp(t, self.t, self.rate)
 
 
-def _model_light(model: SunsetModel, c: str, sun: _SunInterp, blur: float):
-    """Model apex height [arcsec] and blurred visible fraction on a grid of altitudes."""
-    a_c, h, v = light_by_height(model, c, sun.sd)
-    return a_c, h, v * blur_fraction_above(np.maximum(h, 0.0), blur)
-
-
-def _flux_scale(h, v, data: _Data, c: str) -> float:
-    """Scale of measured flux to the model's blurred visible fraction, matched by height."""
-    if data.thin_h[c].size < 3:
-        return float("nan")
-    ok = np.isfinite(h) & (h > 0)
-    if np.count_nonzero(ok) < 3:
-        return float("nan")
-    v_at = np.interp(data.thin_h[c], h[ok], v[ok], left=np.nan, right=np.nan)
-    good = np.isfinite(v_at) & (v_at > 0)
-    if np.count_nonzero(good) < 3:
-        return float("nan")
-    f = data.thin_f[c][good]
-    return float(np.sum(f * v_at[good]) / np.sum(v_at[good] ** 2))
-
-
-def _last_light_altitude(a_c, v, frac: float) -> float:
-    """Centre altitude where the (blurred) visible fraction falls through ``frac``."""
-    above = v >= frac
-    if not above.any() or above.all():
-        return float("nan")
-    i = int(np.argmax(above))  # first grid point (rising altitude) with light detected
-    if i == 0:
-        return float(a_c[0])
-    return float(a_c[i - 1] + (frac - v[i - 1]) / (v[i] - v[i - 1]) * (a_c[i] - a_c[i - 1]))
-
-
 @dataclass(frozen=True)
 class _Prediction:
     """The model's values of every fitted quantity for one GAMMA (a flat vector)."""
@@ -289,10 +244,9 @@ class _Prediction:
 def _predict(model: SunsetModel, data: _Data, sun: _SunInterp) -> _Prediction:
     """Model heights at the measured bin times and model last-light times.
 
-    Last light is compared like with like: where the measurement found it at the model's
-    detection fraction of the disc, the model's last light at that fraction; where only
-    the noise limit was found, the model's at the measured noise threshold, converted to
-    a fraction by scaling the model's (blurred) light curve to the measured one.
+    Last light is compared like with like: the measurement found it where the visible
+    flux fell below the model's detection fraction of the disc (channels for which it
+    could only find the noise limit are left out of the fit in :func:`_prepare`).
     """
     e_hor = horizon_elevation_deg(model)
     sd_deg = sun.sd / 3600.0
@@ -306,18 +260,8 @@ def _predict(model: SunsetModel, data: _Data, sun: _SunInterp) -> _Prediction:
         vals.append(h0)
         rates.append((h1 - h0) / 0.5)
     for c in data.last:
-        if data.at_fraction[c]:
-            det[c], scale[c] = DETECTION_FRACTION, data.disc_flux[c]
-            a_last = last_light_altitude_deg(model, c, sun.sd, DETECTION_FRACTION)
-        else:
-            a_c, h, v = _model_light(model, c, sun, data.blur_arcsec[c])
-            s = _flux_scale(h, v, data, c)
-            frac = data.threshold[c] / s if np.isfinite(s) and s > 0 else np.nan
-            frac = float(np.clip(frac, 1e-7, 0.3)) if np.isfinite(frac) else DETECTION_FRACTION
-            scale[c], det[c] = s, frac
-            a_last = _last_light_altitude(a_c, v, frac)
-            if not np.isfinite(a_last):
-                a_last = last_light_altitude_deg(model, c, sun.sd, frac)
+        det[c], scale[c] = DETECTION_FRACTION, data.disc_flux.get(c, np.nan)
+        a_last = last_light_altitude_deg(model, c, sun.sd, DETECTION_FRACTION)
         last[c] = float(sun.time_of(a_last))
         vals.append(np.array([last[c]]))
         rates.append(np.array([-1.0]))

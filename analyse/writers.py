@@ -155,7 +155,7 @@ class VideoWriter:
     """One H.264 4:2:0 video with each frame's exact presentation time (1/90000 s)."""
 
     def __init__(self, path: Path, width: int, height: int, *, start_unix_s: float,
-                 crf: int = 18) -> None:
+                 crf: int = 18, preset: str = VIDEO_PRESET) -> None:
         self.start_unix_s = start_unix_s
         self.container = av.open(str(path), "w")
         stamp = datetime.fromtimestamp(math.floor(start_unix_s), timezone.utc)
@@ -167,15 +167,19 @@ class VideoWriter:
         ctx.time_base = VIDEO_TIME_BASE
         ctx.colorspace = ctx.color_primaries = ctx.color_trc = 1  # BT.709 (ITU-T H.273)
         ctx.color_range = 1  # limited ("TV") range
-        stream.options = {"crf": str(crf), "preset": VIDEO_PRESET}
+        stream.options = {"crf": str(crf), "preset": preset}
         self.stream = stream
 
     def add(self, record: FrameRecord, image: np.ndarray) -> None:
         """Encode one frame; ``image`` is (H, W, 3) uint8 RGB."""
+        self.add_at(image, round((record.written_unix_s - self.start_unix_s) / VIDEO_TIME_BASE))
+
+    def add_at(self, image: np.ndarray, pts: int) -> None:
+        """Encode one frame at a presentation time in ticks of ``VIDEO_TIME_BASE``."""
         frame = av.VideoFrame.from_ndarray(np.ascontiguousarray(image), format="rgb24")
         frame = frame.reformat(format="yuv420p", src_colorspace="ITU709",
                                dst_colorspace="ITU709")
-        frame.pts = round((record.written_unix_s - self.start_unix_s) / VIDEO_TIME_BASE)
+        frame.pts = pts
         frame.time_base = VIDEO_TIME_BASE
         for packet in self.stream.encode(frame):
             self.container.mux(packet)

@@ -52,7 +52,6 @@ import subprocess
 import sys
 import tempfile
 import time
-from fractions import Fraction
 from pathlib import Path
 
 REPO = Path(__file__).resolve().parents[1]
@@ -62,7 +61,6 @@ KEY_FPS = 5  # rendered frames per second
 VIDEO_FPS = 30  # frames per second of the video
 LENGTH_S = 60  # the long recording [s]; the short one is its last 20 s
 SHORT_S = 20
-TIME_BASE = Fraction(1, 90000)  # s per pts tick, as analyse.writers
 
 SCENARIO = """\
 # Benchmark scenario of scripts/bench_measure.py: 1080p, the Sun about 380 px wide.
@@ -109,39 +107,6 @@ seed = 4
 # --- the recordings ---------------------------------------------------------------------
 
 
-class _Encoder:
-    """H.264 4:2:0 (BT.709) with exact presentation times, as analyse.writers.VideoWriter."""
-
-    def __init__(self, path: Path, width: int, height: int, crf: int, preset: str) -> None:
-        import av
-
-        self.container = av.open(str(path), "w")
-        stream = self.container.add_stream("libx264")
-        stream.width, stream.height, stream.pix_fmt = width, height, "yuv420p"
-        stream.time_base = TIME_BASE
-        ctx = stream.codec_context
-        ctx.time_base = TIME_BASE
-        ctx.colorspace = ctx.color_primaries = ctx.color_trc = 1  # BT.709 (ITU-T H.273)
-        ctx.color_range = 1  # limited range
-        stream.options = {"crf": str(crf), "preset": preset}
-        self.stream = stream
-
-    def add(self, image, pts: int) -> None:
-        import av
-
-        frame = av.VideoFrame.from_ndarray(image, format="rgb24")
-        frame = frame.reformat(format="yuv420p", src_colorspace="ITU709",
-                               dst_colorspace="ITU709")
-        frame.pts, frame.time_base = pts, TIME_BASE
-        for packet in self.stream.encode(frame):
-            self.container.mux(packet)
-
-    def close(self) -> None:
-        for packet in self.stream.encode():
-            self.container.mux(packet)
-        self.container.close()
-
-
 def make_recordings(work: Path, scale: float, noise_dn: float, crf: int, preset: str
                     ) -> dict[int, Path]:
     """Render the key frames and write the 60 s and 20 s video folders (module docstring)."""
@@ -149,7 +114,7 @@ def make_recordings(work: Path, scale: float, noise_dn: float, crf: int, preset:
 
     from analyse.scenario import read_scenario
     from analyse.simulate import iter_frames, prepare_simulation
-    from analyse.writers import VIDEO_NAME, observation_toml
+    from analyse.writers import VIDEO_NAME, VIDEO_TIME_BASE, VideoWriter, observation_toml
 
     folders = {LENGTH_S: work / f"bench{LENGTH_S}", SHORT_S: work / f"bench{SHORT_S}"}
     if all((f / VIDEO_NAME).is_file() for f in folders.values()):
@@ -174,8 +139,8 @@ def make_recordings(work: Path, scale: float, noise_dn: float, crf: int, preset:
     spare = 1 << 16
     bank = np.round(rng.normal(0.0, noise_dn, 3 * cam.width_px * cam.height_px + spare)
                     ).astype(np.int16)
-    enc = {n: _Encoder(f / VIDEO_NAME, cam.width_px, cam.height_px, crf, preset)
-           for n, f in folders.items()}
+    enc = {n: VideoWriter(f / VIDEO_NAME, cam.width_px, cam.height_px, start_unix_s=0.0,
+                          crf=crf, preset=preset) for n, f in folders.items()}
     first_short = (LENGTH_S - SHORT_S) * VIDEO_FPS
     frames = iter_frames(sim)
     _, prev = next(frames)
@@ -191,10 +156,10 @@ def make_recordings(work: Path, scale: float, noise_dn: float, crf: int, preset:
                 blend = (prev * (per_key - j) + nxt * j) // per_key
                 blend += bank[at:at + blend.size].reshape(blend.shape)
                 image = np.clip(blend, 0, 255).astype(np.uint8)
-                pts = round(i / VIDEO_FPS / TIME_BASE)
-                enc[LENGTH_S].add(image, pts)
+                pts = round(i / VIDEO_FPS / VIDEO_TIME_BASE)
+                enc[LENGTH_S].add_at(image, pts)
                 if i >= first_short:
-                    enc[SHORT_S].add(image, pts)
+                    enc[SHORT_S].add_at(image, pts)
                 i += 1
             prev = nxt
             if i and i % 300 == 0:

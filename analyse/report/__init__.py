@@ -324,7 +324,8 @@ def _fig_heights(m, curves, ref: _Reference) -> dict:
            f"{ob.colour_offset_source}); arcsec from a plate scale of "
            f"{ob.plate_scale_arcsec_per_px:.3f} arcsec/px ({ob.plate_scale_source}).")
     cap += (" Blue is left out: at sunset its limb is too faint to locate reliably, and the "
-            "fit does not use it.")
+            "fit does not use it. Apexes lower than three times the edge blur (the last second "
+            "or so) are drawn but not fitted: there the blur, not the limb, sets the height.")
     cap += (" Lines: the best-fitting model on the camera's clock (fitted time offset and "
             "plate-scale correction applied); lower panel: measured minus model."
             if curves is not None else " No model is drawn: nothing was fitted.")

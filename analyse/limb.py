@@ -98,6 +98,10 @@ SKY_FINE_PX = 6.0  # fine bins within this distance of the horizon [px]
 SATURATION_LEVEL = 0.98  # fraction of the clip level counted as saturated
 DEFAULT_SIGMA_PX = 1.0  # blur when nothing measures it [px]
 RAMP_PRIOR_WEIGHT = 0.2  # pull toward the limb-darkening law (tuned on synthetic JPEG q85)
+MIN_LIMB_SIGMA_FRACTION = 0.5  # a limb blur below this fraction of the horizon's is not
+# believed: the same optics blur both (common practice, no source)
+PROFILE_BIN_PX = 0.1  # bin of the apex fit's pixels in their height at the apex column [px]
+HIDDEN_SIGMAS = 8.0  # below this many blurs the horizon's cut enters the model [-]
 NOISE_FLOOR = 0.005  # least pixel noise, relative to the sky (8-bit steps are ~1 %) [-]
 
 
@@ -132,6 +136,7 @@ class ChannelLimb:
     flags: tuple[str, ...]
     curvature_radius_px: float = float("nan")  # limb's radius of curvature at the apex
     edge_sigma_px: float = float("nan")  # Gaussian blur of the limb (with the pixel box)
+    horizon_sigma_px: float = float("nan")  # blur of the horizon's step beside the Sun
 
 
 # --- locate_sun --------------------------------------------------------------------
@@ -458,17 +463,25 @@ def _limb_basis(h: np.ndarray, top: np.ndarray, sigma: float, radius: float
     ``sqrt(sigma) J_1/2 - sigma^1.5 J_3/2 / (4 R)``.
     """
     zg, wg, tables = _ramp_tables()
-    z, w = (top - h) / sigma, np.maximum(h, 0.0) / sigma
-    step = np.where(top > 0, np.clip(ndtr(z) - ndtr(-w), 0.0, None), 0.0)
-    fz = (np.clip(z, zg[0], zg[-1] - 1e-9) - zg[0]) / 0.05
-    fw = np.clip(w, 0.0, wg[-1] - 1e-9) / 0.05
-    iz, iw = fz.astype(int), fw.astype(int)
-    fz, fw = fz - iz, fw - iw
-    flat = iz * wg.size + iw
-    t = tables.reshape(2, -1)
-    corners = (t[:, flat] * ((1 - fz) * (1 - fw)) + t[:, flat + 1] * ((1 - fz) * fw)
-               + t[:, flat + wg.size] * (fz * (1 - fw)) + t[:, flat + wg.size + 1] * (fz * fw))
-    return step, math.sqrt(sigma) * corners[0] - sigma**1.5 * corners[1] / (4.0 * radius)
+    z, w = np.broadcast_arrays((top - h) / sigma, np.maximum(h, 0.0) / sigma)
+    top = np.broadcast_to(top, z.shape)
+    step = np.where(top > 0, ndtr(z) - ndtr(-w), 0.0).clip(0.0, None)
+    j = np.empty((2,) + z.shape)
+    far = w >= wg[-1]  # far above the line: the table's last column, in z only
+    for k in (0, 1):
+        j[k][far] = np.interp(z[far], zg, tables[k, :, -1])
+    if not far.all():
+        near = ~far
+        fz = (np.clip(z[near], zg[0], zg[-1] - 1e-9) - zg[0]) / 0.05
+        fw = np.clip(w[near], 0.0, wg[-1] - 1e-9) / 0.05
+        iz, iw = fz.astype(int), fw.astype(int)
+        fz, fw = fz - iz, fw - iw
+        flat = iz * wg.size + iw
+        t = tables.reshape(2, -1)
+        j[:, near] = (t[:, flat] * ((1 - fz) * (1 - fw)) + t[:, flat + 1] * ((1 - fz) * fw)
+                      + t[:, flat + wg.size] * (fz * (1 - fw))
+                      + t[:, flat + wg.size + 1] * (fz * fw))
+    return step, np.sqrt(sigma) * j[0] - np.power(sigma, 1.5) * j[1] / (4.0 * radius)
 
 
 @dataclass(frozen=True)
@@ -480,34 +493,44 @@ class _ApexFit:
 
 
 def _levenberg_marquardt(fun, p0, lo, hi, max_iter: int = 20, tol: float = 2e-3):
-    """Minimise ``|fun(p)|^2`` within bounds (forward-difference Jacobian, steps clipped
-    to the bounds); stops when a step changes no parameter by more than ``tol``.
+    """Minimise ``|fun(p)|^2`` within bounds (forward-difference Jacobian).
+
+    ``fun`` takes a stack of parameter vectors (K, P) and returns their residuals (K, M):
+    the Jacobian's columns are computed in one call.
+
+    A parameter at a bound that the gradient pushes outward is held there for the
+    iteration (an active set); the others take the damped Gauss-Newton step, clipped to
+    the bounds. Stops when a step taken changes no parameter by more than ``tol``, or
+    when no damping finds a lower cost. ``converged`` is False at ``max_iter`` and when
+    a bound holds a parameter at the end.
 
     Returns (p, jacobian, residuals, converged). K. Levenberg, Q. Appl. Math. 2, 164
     (1944); D. W. Marquardt, J. SIAM 11, 431 (1963).
     """
     p = np.clip(np.asarray(p0, dtype=float), lo, hi)
-    r = fun(p)
+    r = fun(p[None, :])[0]
     cost, lam, eps = float(r @ r), 1e-3, 1e-4
-    jac = np.zeros((r.size, p.size))
     for _ in range(max_iter):
-        for k in range(p.size):
-            dp = np.zeros_like(p)
-            dp[k] = eps
-            jac[:, k] = (fun(p + dp) - r) / eps
+        jac = ((fun(p + eps * np.eye(p.size)) - r) / eps).T  # one batched call
         a, g = jac.T @ jac, jac.T @ r
+        free = ~(((p <= lo) & (g > 0)) | ((p >= hi) & (g < 0)))
+        if not free.any():
+            return p, jac, r, False
+        af, gf = a[np.ix_(free, free)], g[free]
         while lam < 1e8:
-            delta = -np.linalg.solve(a + lam * np.diag(np.diag(a) + 1e-12), g)
+            delta = np.zeros_like(p)
+            delta[free] = -np.linalg.solve(af + lam * np.diag(np.diag(af) + 1e-12), gf)
             trial = np.clip(p + delta, lo, hi)
-            rt = fun(trial)
+            rt = fun(trial[None, :])[0]
             if float(rt @ rt) < cost:
+                delta = trial - p  # the step taken (a bound may have stopped it)
                 p, r, cost, lam = trial, rt, float(rt @ rt), max(lam / 10.0, 1e-9)
                 break
             lam *= 10.0
         else:
-            return p, jac, r, True
+            return p, jac, r, bool(free.all())
         if np.max(np.abs(delta)) < tol:
-            return p, jac, r, True
+            return p, jac, r, bool(free.all()) and not np.any((p <= lo) | (p >= hi))
     return p, jac, r, False
 
 
@@ -519,40 +542,93 @@ def _solve_linear(a: np.ndarray, y: np.ndarray) -> np.ndarray:
         return np.linalg.lstsq(a, y, rcond=None)[0]
 
 
-def _fit_apex(values, h, drop, top0, sigma0, kappa, radius, ratio, prior_weight, free
-              ) -> _ApexFit:
+def _projected(a: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Residuals ``a c - y`` of the least-squares ``c`` for a stack of designs ``a``
+    (K, M, Q) and one target ``y`` (M,): the linear part of a variable projection [2]."""
+    at = np.swapaxes(a, 1, 2)
+    try:
+        c = np.linalg.solve(at @ a, (at @ y)[..., None])
+    except np.linalg.LinAlgError:
+        c = np.stack([np.linalg.lstsq(ak, y, rcond=None)[0] for ak in a])[..., None]
+    return (a @ c)[..., 0] - y
+
+
+def _fit_apex(values, h, drop, top0, sigma0, kappa, radius, ratio, prior_weight, free,
+              sigma_start: float | None = None) -> _ApexFit:
     """Least-squares apex height ``T`` of the limb model (variable projection [2]).
 
     ``values`` are excess pixels at heights ``h`` whose column's top lies ``drop`` below
     the apex. ``free``: ``T`` and ``sigma`` nonlinear, ``a``, ``b`` and a sky offset linear,
     ``b`` pulled toward ``ratio * a`` with weight ``prior_weight`` per sqrt(pixel) (a row
     appended to the linear problem). Otherwise ``sigma = sigma0`` and ``b = ratio * a``.
+    ``sigma_start``: where the free fit starts in ``sigma`` (default ``sigma0``), e.g. the
+    previous frame's: fewer iterations, the same minimum.
+
+    The model of a pixel depends on ``u = h + drop`` (its height as if in the apex column)
+    and, near the horizon only, on ``h``: the pixels are fitted as the means of narrow
+    bins (:func:`_profile_bins`), weighted by their counts, which leaves the least-squares
+    problem the same (the scatter within bins is added back to the residual sum) at a
+    fraction of the model evaluations' cost.
     """
+    bins = _profile_bins(values, h, drop, sigma0)
+    wt = np.sqrt(bins.count)
     lam = prior_weight * math.sqrt(values.size) if free else 0.0
     prior = np.array([[-lam * ratio, lam, 0.0]])
-    target = np.append(values, 0.0)
+    target = np.append(bins.mean * wt, 0.0)
 
-    def resid(p):
-        step, ramp = _limb_basis(h, p[0] - drop, math.exp(p[1]) if free else sigma0, radius)
+    def resid(p):  # (K, 1 or 2) -> (K, bins [+ 1])
+        sig = np.exp(p[:, 1:2]) if free else sigma0
+        step, ramp = _limb_basis(bins.h, p[:, :1] - bins.drop, sig, radius)
+        ones = np.ones_like(step)
         if free:
-            a = np.vstack([np.column_stack([step, ramp, np.ones_like(h)]), prior])
-            return a @ _solve_linear(a, target) - target
-        a = np.column_stack([step + ratio * ramp, np.ones_like(h)])
-        return a @ _solve_linear(a, values) - values
+            a = np.stack([step, ramp, ones], axis=2) * wt[:, None]
+            a = np.concatenate([a, np.broadcast_to(prior, (len(p), 1, 3))], axis=1)
+            return _projected(a, target)
+        a = np.stack([step + ratio * ramp, ones], axis=2) * wt[:, None]
+        return _projected(a, target[:-1])
 
-    p0 = [top0, math.log(sigma0)] if free else [top0]
+    start = sigma_start if sigma_start is not None and 0.35 < sigma_start < 5.0 else sigma0
+    p0 = [top0, math.log(start)] if free else [top0]
     lo = np.array([top0 - 6.0, math.log(0.3)][: len(p0)])
     hi = np.array([top0 + 6.0, math.log(6.0)][: len(p0)])
     p, jac, r, conv = _levenberg_marquardt(resid, p0, lo, hi)
-    r, jac = r[: values.size], jac[: values.size]
+    r, jac = r[: bins.count.size], jac[: bins.count.size]
     dof = max(values.size - len(p0) - (3 if free else 2), 1)
     try:
-        var = float(np.linalg.inv(jac.T @ jac)[0, 0]) * float(r @ r) / dof * kappa
+        var = (float(np.linalg.inv(jac.T @ jac)[0, 0]) * (float(r @ r) + bins.scatter)
+               / dof * kappa)
     except np.linalg.LinAlgError:
         var = np.nan
     inside = bool(np.all((p > lo + 1e-3) & (p < hi - 1e-3)))
     sig = math.exp(p[1]) if free else sigma0
     return _ApexFit(float(p[0]), math.sqrt(max(var, 0.0)), sig, conv and inside)
+
+
+@dataclass(frozen=True)
+class _Bins:
+    """Pixels of a limb fit gathered in bins of nearly equal model value."""
+
+    mean: np.ndarray  # mean excess of each bin [linear]
+    count: np.ndarray  # pixels per bin
+    h: np.ndarray  # their mean height above the line [px]
+    drop: np.ndarray  # their mean drop below the apex column's top [px]
+    scatter: float  # sum of squared deviations from the bin means [linear^2]
+
+
+def _profile_bins(values, h, drop, sigma0: float) -> _Bins:
+    """Bins of :data:`PROFILE_BIN_PX` in ``u = h + drop``; pixels lower than
+    :data:`HIDDEN_SIGMAS` blurs (where the horizon's cut shapes the model) are also
+    split by ``h`` in steps of the same width."""
+    u = h + drop
+    ku = np.floor((u - u.min()) / PROFILE_BIN_PX).astype(np.int64)
+    low = h < HIDDEN_SIGMAS * max(sigma0, 1.0)
+    kh = np.where(low, np.floor(np.maximum(h, 0.0) / PROFILE_BIN_PX).astype(np.int64) + 1, 0)
+    key = ku * (int(kh.max()) + 1) + kh
+    _, idx, count = np.unique(key, return_inverse=True, return_counts=True)
+    mean = np.bincount(idx, values) / count
+    scatter = float(np.sum(values**2) - np.sum(count * mean**2))
+    return _Bins(mean, count.astype(float), np.bincount(idx, h) / count,
+                 np.bincount(idx, drop) / count, max(scatter, 0.0))
 
 
 def _ramp_ratio(channel: str, radius_px: float) -> float:
@@ -716,22 +792,24 @@ def _segment(excess, fr: _Frame, box) -> tuple[float, float] | None:
     return float(sc), 2.0 * math.sqrt(max(peak / -c2, 0.0))
 
 
-def _horizon_sigma(sky: _Sky) -> float:
+def _horizon_sigma(sky: _Sky, start: float | None = None) -> float:
     """Gaussian width of the sky-to-sea step in the sky model [px]: an error function
     plus a linear trend fitted within ``SKY_FINE_PX`` of the line, the bins' own width
-    removed."""
+    removed. The fit starts at ``start`` (e.g. the previous frame's result) or 1 px."""
     c = sky.nodes.h
     near = np.abs(c) < SKY_FINE_PX
     if near.sum() < 8:
         return DEFAULT_SIGMA_PX
     hc, lv = c[near], sky.level[near]
 
-    def resid(p):
-        a = np.column_stack([np.ones_like(hc), ndtr((hc - p[0]) / math.exp(p[1])), hc])
-        return a @ _solve_linear(a, lv) - lv
+    def resid(p):  # (K, 2) -> (K, nodes)
+        edge = ndtr((hc - p[:, :1]) / np.exp(p[:, 1:2]))
+        a = np.stack([np.ones_like(edge), edge, np.broadcast_to(hc, edge.shape)], axis=2)
+        return _projected(a, lv)
 
     lo, hi = np.array([-2.0, math.log(0.3)]), np.array([2.0, math.log(4.0)])
-    p, _, r, conv = _levenberg_marquardt(resid, [0.0, 0.0], lo, hi)
+    s0 = math.log(math.sqrt(start**2 + SKY_BIN_PX**2 / 12.0)) if start and start > 0.4 else 0.0
+    p, _, r, conv = _levenberg_marquardt(resid, [0.0, min(max(s0, lo[1]), hi[1])], lo, hi)
     rms = math.sqrt(float(r @ r) / max(r.size - 5, 1))
     if not conv or rms > 0.2 * abs(float(np.ptp(lv))):
         return DEFAULT_SIGMA_PX
@@ -765,19 +843,24 @@ class _Channel:
     sigma_h: float  # blur measured on the horizon beside the Sun [px]
     radius_px: float | None
     prior_weight: float
+    sigma_start: float | None = None  # the blur where the apex fit starts [px]
 
 
-def _thick(ch: _Channel, fr: _Frame, box, hint=None) -> _Shape | None:
+def _thick(ch: _Channel, fr: _Frame, box, hint=None, memo=None) -> _Shape | None:
     """Apex from the contour's arc and the limb model near the apex (module docstring).
 
     ``hint``: another channel's arc, used when this channel's contour is too faint for
     its own (the channels' discs differ by a few pixels of dispersion).
     """
     noise = ch.sky.sigma * math.sqrt(ch.sky.kappa)
-    arc = _fit_arc(*_contour(ch.excess, fr, box, noise), 3.0 * ch.sigma_h + 1.0)
-    flags: tuple[str, ...] = ()
-    if hint is not None and (arc is None or abs(arc[1] + arc[2] - hint[1] - hint[2]) > 6.0
-                             or abs(arc[0] - hint[0]) > 0.2 * hint[2]):
+    memo = {} if memo is None else memo
+    if "arc" not in memo:
+        memo["arc"] = _fit_arc(*_contour(ch.excess, fr, box, noise), 3.0 * ch.sigma_h + 1.0)
+    arc, flags = memo["arc"], ()
+    if hint is not None:
+        if not (arc is None or abs(arc[1] + arc[2] - hint[1] - hint[2]) > 6.0
+                or abs(arc[0] - hint[0]) > 0.2 * hint[2]):
+            return None  # its own arc kept: the first pass's fit, which failed
         arc, flags = hint, ("arc-from-other-channel",)
     if arc is None or arc[1] + arc[2] < THIN_SEGMENT_PX + 3.0 * ch.sigma_h:
         return None
@@ -792,14 +875,20 @@ def _thick(ch: _Channel, fr: _Frame, box, hint=None) -> _Shape | None:
     if group.sum() < 30:
         return None
     fit = _fit_apex(ch.excess[group], fr.h[group], drop[group], apex0 + 0.2, ch.sigma_h,
-                    ch.sky.kappa, rc, _ramp_ratio(ch.name, rc), ch.prior_weight, not saturated)
-    if not fit.ok:
-        return None
+                    ch.sky.kappa, rc, _ramp_ratio(ch.name, rc), ch.prior_weight, not saturated,
+                    ch.sigma_start)
+    if not fit.ok or fit.sigma_px < MIN_LIMB_SIGMA_FRACTION * ch.sigma_h:
+        return None  # no fit, or a limb sharper than the optics: a thin segment's contour
     top = fit.top_px
     wh = _side_width(ch.excess, fr, box, noise, arc, top, top - apex0, fit.sigma_px)
     if wh is None:  # too low for side edges: the circle's chord on the line
         wh = (2.0 * math.sqrt(max(2.0 * rc * top - top**2, 0.0)), top)
     return _Shape(top, fit.top_err_px, sc, wh[0], wh[1], rc, fit.sigma_px, flags, arc)
+
+
+def _thin_top(sigma_px: float) -> float:
+    """Highest apex a thin-segment fit may return [px]."""
+    return 3.0 * sigma_px + 6.0
 
 
 def _thin(ch: _Channel, fr: _Frame, box) -> _Shape | None:
@@ -822,15 +911,16 @@ def _thin(ch: _Channel, fr: _Frame, box) -> _Shape | None:
     vals, s, h = ch.excess[sel], fr.s[sel], fr.h[sel]
     fixed = ch.radius_px if ch.radius_px is not None and ch.radius_px > 0.5 * w0 else None
 
-    def resid(p):
-        rc = fixed if fixed is not None else math.exp(p[2])
-        step, ramp = _limb_basis(h, p[0] - (s - p[1]) ** 2 / (2.0 * rc), sig, rc)
-        a = np.column_stack([step + _ramp_ratio(ch.name, rc) * ramp, np.ones_like(h)])
-        return a @ _solve_linear(a, vals) - vals
+    def resid(p):  # (K, 2 or 3) -> (K, pixels)
+        rc = np.full((len(p), 1), fixed) if fixed is not None else np.exp(p[:, 2:3])
+        step, ramp = _limb_basis(h, p[:, :1] - (s - p[:, 1:2]) ** 2 / (2.0 * rc), sig, rc)
+        ratio = np.array([_ramp_ratio(ch.name, float(x)) for x in rc[:, 0]])[:, None]
+        a = np.stack([step + ratio * ramp, np.ones_like(step)], axis=2)
+        return _projected(a, vals)
 
     p0 = [top0, sc0] + ([] if fixed is not None else [math.log(max(w0**2 / 12.0, w0))])
     lo = np.array([0.0, sc0 - 5.0, math.log(0.5 * w0 + 1.0)][: len(p0)])
-    hi = np.array([3.0 * sig + 6.0, sc0 + 5.0, math.log(1e4)][: len(p0)])
+    hi = np.array([_thin_top(sig), sc0 + 5.0, math.log(1e4)][: len(p0)])
     p, jac, r, conv = _levenberg_marquardt(resid, p0, lo, hi, max_iter=30)
     try:
         err = math.sqrt(max(np.linalg.inv(jac.T @ jac)[0, 0] * float(r @ r)
@@ -846,8 +936,15 @@ def _thin(ch: _Channel, fr: _Frame, box) -> _Shape | None:
 
 
 def _measure_channel(name: str, plane, fr: _Frame, box, sky: _Sky, clip: float,
-                     radius_px: float | None, prior_weight: float, hint=None
+                     radius_px: float | None, prior_weight: float, hint=None,
+                     thin: bool = True, memo: dict | None = None
                      ) -> tuple[ChannelLimb, _Shape | None]:
+    """One channel: flux and visibility, then its limb: the arc and apex fit of a disc
+    (:func:`_thick`, on ``hint``'s arc if its own is missing), else, if ``thin``, a thin
+    segment (:func:`_thin`), unless ``hint``'s disc stands too high for the channel's
+    segment to be believed (:data:`MAX_CHANNEL_GAP_PX`). ``memo`` keeps the channel's
+    blur and arc between the first call (no hint) and a second one (with a hint)."""
+    memo = {} if memo is None else memo
     excess = plane - sky.on(fr)
     flux, err = _flux(excess, fr, box, sky)
     significance = flux / err if err > 0 else 0.0
@@ -860,16 +957,24 @@ def _measure_channel(name: str, plane, fr: _Frame, box, sky: _Sky, clip: float,
     if not significance >= VISIBILITY_SIGMA:
         return ChannelLimb(name, False, significance, flux, err, nan, nan, nan, nan, nan,
                            sky_here, sky_here + disc, saturated, flags), None
-    ch = _Channel(name, excess, usable, sky, _horizon_sigma(sky), radius_px, prior_weight)
-    shape = _thick(ch, fr, box, hint) or _thin(ch, fr, box)
+    if "sigma" not in memo:
+        memo["sigma"] = _horizon_sigma(sky, memo.get("horizon_start"))
+    ch = _Channel(name, excess, usable, sky, memo["sigma"], radius_px, prior_weight,
+                  memo.get("sigma_start"))
+    shape = _thick(ch, fr, box, hint, memo)
+    if shape is None and thin and (hint is None or hint[1] + hint[2] - _thin_top(ch.sigma_h)
+                                   <= MAX_CHANNEL_GAP_PX):
+        shape = _thin(ch, fr, box)
     if shape is None:
         return ChannelLimb(name, True, significance, flux, err, nan, nan, nan, nan, nan,
-                           sky_here, sky_here + disc, saturated, flags + ("no-limb-fit",)), None
+                           sky_here, sky_here + disc, saturated, flags + ("no-limb-fit",),
+                           horizon_sigma_px=ch.sigma_h), None
     x_apex, _ = fr.to_image(shape.s_c, shape.apex_px)
     sky_apex = sky.at(shape.s_c, shape.apex_px + 3.0)
     return ChannelLimb(name, True, significance, flux, err, shape.apex_px, shape.apex_err_px,
                        x_apex, shape.width_px, shape.height_px, sky_apex, sky_apex + disc,
-                       saturated, flags + shape.flags, shape.radius_px, shape.sigma_px), shape
+                       saturated, flags + shape.flags, shape.radius_px, shape.sigma_px,
+                       ch.sigma_h), shape
 
 
 def _missing(flag: str) -> dict[str, ChannelLimb]:
@@ -881,7 +986,8 @@ def _missing(flag: str) -> dict[str, ChannelLimb]:
 def measure_limbs(image: np.ndarray, line: HorizonLine, sun: SunLocation, *,
                   noise: float | dict[str, float] | None = None,
                   radius_px: float | None = None, clip_level: float = 1.0,
-                  ramp_prior_weight: float = RAMP_PRIOR_WEIGHT) -> dict[str, ChannelLimb]:
+                  ramp_prior_weight: float = RAMP_PRIOR_WEIGHT,
+                  previous: dict[str, ChannelLimb] | None = None) -> dict[str, ChannelLimb]:
     """Measure each channel's Sun above the horizon: flux, visibility, upper limb, extent.
 
     Parameters
@@ -907,6 +1013,10 @@ def measure_limbs(image: np.ndarray, line: HorizonLine, sun: SunLocation, *,
         wavelength, per sqrt(pixel) [-]: 0 trusts the data (best for frames without
         chroma subsampling); the default keeps JPEG/4:2:0 ringing from being taken for
         limb darkening, at the cost of ~3 px per unit error of the law's ``u``.
+    previous : dict, optional
+        The previous frame's result: its blurs (``edge_sigma_px``, ``horizon_sigma_px``)
+        are where this frame's fits start, which then converge in fewer steps to the same
+        minimum.
 
     Returns
     -------
@@ -930,35 +1040,45 @@ def measure_limbs(image: np.ndarray, line: HorizonLine, sun: SunLocation, *,
         beside = (fr.h > top) & ~box
     nodes = _nodes(fr, beside)
     skies, shapes = {}, {}
-    for i, c in enumerate(CHANNELS):
+    memos = {c: _starts(previous.get(c) if previous else None) for c in CHANNELS}
+    for i, c in enumerate(CHANNELS):  # discs first: their arcs help fainter channels
         level = noise.get(c) if isinstance(noise, dict) else noise
         skies[c] = _sky(crop[..., i], fr, beside, nodes, level)
         if skies[c] is None:
             out[c] = _missing("no-sky-reference")[c]
             continue
         out[c], shapes[c] = _measure_channel(c, crop[..., i], fr, box, skies[c], clip_level,
-                                             radius_px, ramp_prior_weight)
+                                             radius_px, ramp_prior_weight, thin=False,
+                                             memo=memos[c])
     hint = _best_arc(out, shapes)
-    for i, c in enumerate(CHANNELS):  # faint channels beside a thick disc: its arc
-        if hint is not None and c in shapes and out[c].visible and (
-                shapes[c] is None or shapes[c].arc is None):
-            out[c] = _retry(out[c], hint, lambda: _measure_channel(
+    for i, c in enumerate(CHANNELS):  # channels without an arc: another's, or thin
+        if c in shapes and out[c].visible and shapes[c] is None:
+            out[c] = _second_pass(out[c], hint, lambda h: _measure_channel(
                 c, crop[..., i], fr, box, skies[c], clip_level, radius_px,
-                ramp_prior_weight, hint))
+                ramp_prior_weight, h, memo=memos[c]))
     return {c: dataclasses.replace(lm, flags=lm.flags + extra) for c, lm in out.items()}
 
 
-def _retry(limb: ChannelLimb, hint, measure) -> ChannelLimb:
-    """A channel without an arc of its own, measured again on another channel's arc;
-    if that fails too, a "thin" apex far below that disc is not believed."""
-    again, shape = measure()
-    if shape is not None and shape.arc is not None:
+def _starts(limb: ChannelLimb | None) -> dict[str, float]:
+    """Where a channel's fits start: an earlier frame's blurs, where finite."""
+    if limb is None:
+        return {}
+    pairs = (("sigma_start", limb.edge_sigma_px), ("horizon_start", limb.horizon_sigma_px))
+    return {k: float(v) for k, v in pairs if np.isfinite(v)}
+
+
+def _second_pass(limb: ChannelLimb, hint, measure) -> ChannelLimb:
+    """A channel without an arc of its own: measured on another channel's arc ``hint``
+    (when there is one) or as a thin segment; a thin apex far below the hint's disc is
+    not believed."""
+    again, shape = measure(hint)
+    if hint is None or (shape is not None and shape.arc is not None):
         return again
-    if hint[1] + hint[2] - limb.apex_height_px > MAX_CHANNEL_GAP_PX:
-        return dataclasses.replace(limb, apex_height_px=np.nan, apex_height_err_px=np.nan,
+    if hint[1] + hint[2] - again.apex_height_px > MAX_CHANNEL_GAP_PX:
+        return dataclasses.replace(again, apex_height_px=np.nan, apex_height_err_px=np.nan,
                                    width_px=np.nan, height_px=np.nan,
-                                   flags=limb.flags + ("no-limb-fit",))
-    return limb
+                                   flags=again.flags + ("no-limb-fit",))
+    return again
 
 
 def _best_arc(limbs: dict[str, ChannelLimb], shapes: dict) -> tuple[float, float, float] | None:

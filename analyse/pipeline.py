@@ -195,8 +195,9 @@ def _sun_columns(sun: lb.SunLocation) -> tuple[float, float] | None:
     return sun.x_px - 1.3 * sun.radius_px - 10, sun.x_px + 1.3 * sun.radius_px + 10
 
 
-def _measure_frame(img, prior, sun_prior):
-    """Horizon, Sun and limbs of one frame; returns (line, sun, limbs, flags, box)."""
+def _measure_frame(img, prior, sun_prior, previous=None):
+    """Horizon, Sun and limbs of one frame; returns (line, sun, limbs, flags, box).
+    ``previous``: the previous frame's limbs, where the fits start."""
     flags: list[str] = []
     sun = lb.locate_sun(img, prior if prior is not None and prior.found else None)
     if not sun.found and sun_prior is not None:
@@ -214,7 +215,7 @@ def _measure_frame(img, prior, sun_prior):
     y0, y1, x0, x1 = _crop_box(sun, line, img.shape)
     crop = img[y0:y1, x0:x1]
     sun_c = dataclasses.replace(sun, x_px=sun.x_px - x0, y_px=sun.y_px - y0)
-    limbs = lb.measure_limbs(crop, _shift_line(line, x0, y0), sun_c)
+    limbs = lb.measure_limbs(crop, _shift_line(line, x0, y0), sun_c, previous=previous)
     for c, lm in limbs.items():
         flags.extend(f"{c}:{f}" for f in lm.flags)
     return line, sun, limbs, flags, (y0, y1, x0, x1)
@@ -300,15 +301,16 @@ def _measure_frames(fs: FrameSet, tick: Callable[[], object], *,
     """The frame loop; ``tick`` is called once per frame (a progress bar)."""
     res = _Results(len(fs.infos))
     stride = colour_stride or _colour_stride(len(fs.infos))
-    prior = sun_prior = None
+    prior = sun_prior = previous = None
     lines = 0
     for info, img in iter_frames(fs, on_error="skip", prefetch=prefetch):
         tick()
         if img is None:
             res.cols.add(info, None, {}, ["unreadable"])
             continue
-        line, sun, limbs, flags, box = _measure_frame(img, prior, sun_prior)
+        line, sun, limbs, flags, box = _measure_frame(img, prior, sun_prior, previous)
         res.add(info, img, line, limbs, flags, box)
+        previous = limbs or previous
         if line.found:
             if lines % stride == 0:
                 res.add_colour(hz.horizon_colour_offsets(img, line,

@@ -85,10 +85,11 @@ def _reference(fs):
     """Rows (line, limbs in frame columns, flags), colour offsets and strip crops, one
     frame after another as the loop was first written."""
     rows, colour, strip = [], {"r": [], "b": []}, []
-    prior = sun_prior = None
+    prior = sun_prior = previous = None
     after_dark = 0
     for info, img in iter_frames(fs, on_error="skip"):
-        line, sun, limbs, flags, box = pl._measure_frame(img, prior, sun_prior)
+        line, sun, limbs, flags, box = pl._measure_frame(img, prior, sun_prior, previous)
+        previous = limbs or previous  # the fits start from the last frame's blurs
         if box is not None:
             limbs = {c: dataclasses.replace(lm, apex_x_px=lm.apex_x_px + box[2])
                      for c, lm in limbs.items()}

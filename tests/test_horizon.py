@@ -10,12 +10,17 @@ import math
 
 import numpy as np
 import pytest
+from scipy.special import ndtr
 
+from analyse.frames import linear_to_srgb, srgb_to_linear
 from analyse.horizon import (
+    TUKEY_C,
     HorizonLine,
+    column_edges,
     encoding_bias,
     find_horizon,
     horizon_colour_offsets,
+    robust_line,
 )
 from tests.synthetic import Scene, render
 
@@ -54,6 +59,36 @@ def test_degraded_frames(scene):
     _check_line(find_horizon(img), truth)
 
 
+def _codes_to_linear(codes) -> dict:
+    return {c: float(srgb_to_linear(v / 255.0)) for c, v in zip("rgb", codes)}
+
+
+@pytest.mark.parametrize("sky, sea", [((22.0, 11.8, 5.3), (5.6, 2.4, 1.1)),
+                                      ((12.0, 12.0, 12.0), (2.5, 2.5, 2.5))],
+                         ids=["red", "grey"])
+def test_dim_8bit_edge_is_unbiased(sky, sea):
+    # A dim sky over a darker sea, as in the simulated recordings (green 12 -> 2.5 sRGB
+    # codes), stored as 8-bit sRGB with sensor noise of ~1.4 codes: the code values'
+    # rounding is dithered by the noise and leaves no bias at any sub-pixel position or
+    # phase of an 8-row block. (Through JPEG 85 the same frames are off by up to 0.2-0.4
+    # px at some block phases: the codec's DCT quantisation of the noise-free dark blocks
+    # and of their chroma; see issue 4's notes. Not asserted here.)
+    errors = []
+    for k in range(8):
+        scene = Scene(shape=(120, 480), horizon_row_px=56.0 + k + 0.5 * (k % 2) + 0.13,
+                      sun=False, sky_level=_codes_to_linear(sky), sea_level=_codes_to_linear(sea),
+                      psf_sigma_px=0.9, gain_e=20000.0, read_noise_e=3.0, seed=20 + k)
+        img, truth = render(scene)
+        img = srgb_to_linear(np.round(linear_to_srgb(np.clip(img, 0, 1)) * 255) / 255)
+        line = find_horizon(img.astype(np.float32))
+        assert line.found, line.message
+        errors.append(line.row_px - truth.row_px)
+    # 0.08 px: what the PNG/TIFF recordings reach end to end; the mean of 8 frames within
+    # 0.03 px (common practice, no source: a bias well below the issue's 0.2 px).
+    assert np.max(np.abs(errors)) < 0.08
+    assert abs(np.mean(errors)) < 0.03
+
+
 def test_edge_width_and_contrast_are_reported():
     img, truth = render(Scene(psf_sigma_px=1.5, sun=False, seed=6))
     line = find_horizon(img)
@@ -61,6 +96,57 @@ def test_edge_width_and_contrast_are_reported():
     assert line.edge_sigma_px == pytest.approx(math.sqrt(1.5**2 + 1 / 12), abs=0.2)
     # Green sky 0.14 over sea 0.04 at the horizon (Scene defaults); 15 % for the gradients.
     assert line.edge_contrast == pytest.approx(0.10, rel=0.15)
+
+
+def test_noise_is_estimated_per_column():
+    # A faint step (1 over 0, sigma 1.2 px) in every column; the first 20 columns have
+    # noise 0.03, the other 80 noise 0.6 (a bright disc's photon noise). The quiet
+    # columns find the step at their own noise (SNR ~30), not at the noisy majority's.
+    rng = np.random.default_rng(0)
+    rows = np.arange(40)[:, None]
+    strip = 1.0 - ndtr((rows - 20.3) / 1.2) * np.ones((1, 100))
+    strip += np.where(np.arange(100) < 20, 0.03, 0.6) * rng.standard_normal((40, 100))
+    row, snr, _, _, polarity = column_edges(strip, np.zeros(100), np.full(100, 39.0),
+                                            polarity=-1)
+    quiet = np.isfinite(row[:20])
+    # The noise is a median over +-4 neighbouring column pairs: the last quiet columns
+    # next to the noisy ones may fail.
+    assert quiet.sum() >= 15
+    assert np.median(row[:20][quiet]) == pytest.approx(20.3, abs=0.05)  # 0.05: noise 0.03
+    assert np.isfinite(row[20:]).sum() <= 2  # SNR ~2 there: below EDGE_MIN_SNR
+    assert polarity == -1
+
+
+def test_sun_wider_than_most_of_the_frame():
+    # DEVELOPERS.md known gap: the disc 300 px wide in a 400 px frame (75 %), a dim sky
+    # beside it (photon noise of the disc ~5x the sky's), the disc's columns left out by
+    # the caller: the 80 columns beside it still give the line.
+    scene = Scene(shape=(220, 400), radius_px=150.0, roll_deg=0.8,
+                  apex_height_px={"r": 118.0, "g": 120.0, "b": 121.0},
+                  sky_level={"r": 0.06, "g": 0.03, "b": 0.015},
+                  sea_level={"r": 0.018, "g": 0.009, "b": 0.0045},
+                  disc_level={"r": 0.9, "g": 0.6, "b": 0.35}, glitter=True, seed=12)
+    img, truth = render(scene)
+    _check_line(find_horizon(img, exclude_x=(40.0, 360.0)), truth)
+
+
+def test_robust_line_is_converged():
+    # The returned line is a fixed point of the Tukey-biweight reweighting (the early
+    # stop leaves it within 1e-6 px), and the outlying block of points gets zero weight.
+    rng = np.random.default_rng(3)
+    x = np.arange(480) * 4.0 + 1.5
+    y = 300.0 + 0.004 * (x - 958.5) + 0.08 * rng.standard_normal(x.size)
+    y[100:160] += 6.0
+    row, slope, cov, inliers, scale = robust_line(x, y, 958.5)
+    assert not inliers[100:160].any() and inliers.sum() > 400
+    r = y - row - slope * (x - 958.5)
+    w = np.clip(1.0 - (r / (TUKEY_C * scale)) ** 2, 0.0, None) ** 2
+    a = np.column_stack([np.ones_like(x), x - 958.5]) * np.sqrt(w)[:, None]
+    again = np.linalg.lstsq(a, y * np.sqrt(w), rcond=None)[0]
+    assert again[0] == pytest.approx(row, abs=1e-5)
+    assert again[1] * 1916.0 == pytest.approx(slope * 1916.0, abs=1e-5)
+    assert row == pytest.approx(300.0, abs=0.03)  # 0.08 px noise over ~400 points
+    assert math.sqrt(cov[0, 0]) == pytest.approx(0.08 / math.sqrt(inliers.sum()), rel=0.5)
 
 
 def test_prior_narrows_the_search():

@@ -9,11 +9,13 @@ Sky and flux
     of the columns beside the Sun (both sides), placed at the mean height of each bin's
     pixels and interpolated linearly between, plus a linear trend along ``s``; its
     pixel-to-pixel scatter there is the noise. The
-    flux is the sum of the sky-subtracted pixels above the line over the Sun's columns,
-    up to a little above its top; its error is the noise times the square root of the
-    pixel count, inflated for correlation between neighbouring pixels (measured on the
-    sky beside) and for the sky model's own error. The channel is visible when
-    ``flux / flux_err >= VISIBILITY_SIGMA``.
+    flux is the sum of the sky-subtracted pixels over the Sun's columns, up to a little
+    above its top, each weighted by the share of its area above the line (the row astride
+    the line counts in part, :func:`_area_above`, so the flux of a faint segment does not
+    jump as the line crosses a pixel's centre); its error is the noise times the square
+    root of the sum of squared weights, inflated for correlation between neighbouring
+    pixels (measured on the sky beside) and for the sky model's own error. The channel is
+    visible when ``flux / flux_err >= VISIBILITY_SIGMA``.
 
 Upper limb
     1. Contour: in each column the upper edge is the peak of a derivative-of-Gaussian
@@ -46,6 +48,21 @@ Upper limb
        circular segment of known radius), ``R_c`` is fixed and ``T`` follows from the
        width and flux together. Flagged ``"thin-segment"``.
 
+4:2:0 colour (``chroma_luma`` given)
+    JPEG and most video keep the luma ``Y' = K_R R' + K_G G' + K_B B'`` of the encoded
+    (sRGB) values at full resolution and the colour differences at half resolution in
+    both directions, so each decoded channel is ``X' + D (X' - Y')``, with ``D`` the
+    chroma's resampling minus the identity [4]_. At a sunset limb the channels' edges
+    differ (dispersion lifts green a pixel or two above a much brighter red), and red's
+    edge leaks into green with weight ``-K_R``: on simulated H.264 and JPEG frames green's
+    apex reads 0.2 px low, red's edge is widened. The leak is predicted from the fitted
+    limb models (sky plus limb of each channel, encoded), with ``D`` the resampling's
+    vertical spread averaged over the row phase, :data:`CHROMA_420_KERNEL`, and each
+    channel with a disc is fitted again with it removed, most significant first, each
+    refit updating the prediction for the next. Only rows mix: the limb is level near the
+    apex. The same leak of the sky's own colour step at the horizon is in the sky model
+    (the columns beside the Sun went through the codec alike) and is left out.
+
 Width and height
     The side edges are located along image rows like the contour; each point is moved
     outward by the contour's bias found in step 3. For an ellipse ``(s - s_c)^2`` is a
@@ -61,6 +78,10 @@ References
    doi:10.1088/0266-5611/19/2/201
 .. [3] R. B. Fisher and D. K. Naidu, "A comparison of algorithms for subpixel peak
    detection", in Image Technology, Springer (1996), 385-404 (Gaussian three-point fit).
+.. [4] ITU-R Recommendation BT.601-7 (2011), section 2.5.1 (luma weights 0.299, 0.587,
+   0.114; also JPEG's JFIF 1.02, Hamilton 1992) and BT.709-6 (2015), items 3.2-3.3
+   (0.2126, 0.7152, 0.0722); chroma siting and 2:1 decimation in both directions for
+   4:2:0 per ITU-T H.264 (2019), annex E, and ITU-T T.81 (1992), section A.1.1.
 """
 
 from __future__ import annotations
@@ -76,9 +97,11 @@ from scipy import ndimage
 from scipy.special import ndtr
 
 from analyse.disc import limb_darkening_u
+from analyse.frames import linear_to_srgb, srgb_to_linear
 from analyse.horizon import HorizonLine
 
-__all__ = ["VISIBILITY_SIGMA", "SunLocation", "ChannelLimb", "locate_sun", "measure_limbs"]
+__all__ = ["VISIBILITY_SIGMA", "LUMA_BT601", "LUMA_BT709", "SunLocation", "ChannelLimb",
+           "locate_sun", "measure_limbs"]
 
 VISIBILITY_SIGMA = 5.0  # flux / flux_err for "sun above the horizon" (common practice, no source)
 CHANNELS = ("r", "g", "b")
@@ -103,6 +126,13 @@ MIN_LIMB_SIGMA_FRACTION = 0.5  # a limb blur below this fraction of the horizon'
 PROFILE_BIN_PX = 0.1  # bin of the apex fit's pixels in their height at the apex column [px]
 HIDDEN_SIGMAS = 8.0  # below this many blurs the horizon's cut enters the model [-]
 NOISE_FLOOR = 0.005  # least pixel noise, relative to the sky (8-bit steps are ~1 %) [-]
+LUMA_BT601 = (0.299, 0.587, 0.114)  # K_R, K_G, K_B: ITU-R BT.601-7 (JPEG/JFIF, SD video)
+LUMA_BT709 = (0.2126, 0.7152, 0.0722)  # K_R, K_G, K_B: ITU-R BT.709-6 item 3.2 (HD video)
+# Vertical spread of 4:2:0 chroma [-], averaged over the row phase: FFmpeg's (1, 3, 3, 1) / 8
+# decimation with nearest-sample upsampling and libjpeg's 2x2 mean with its (3/4, 1/4)
+# "fancy" upsampling both average to the binomial (1, 4, 6, 4, 1) / 16, variance 1 px^2
+# (derived here; the round trip through FFmpeg is checked in tests/test_limb_fit.py).
+CHROMA_420_KERNEL = np.array([1.0, 4.0, 6.0, 4.0, 1.0]) / 16.0
 
 
 @dataclass(frozen=True)
@@ -123,7 +153,7 @@ class ChannelLimb:
     channel: str
     visible: bool  # significance >= VISIBILITY_SIGMA
     significance: float  # flux / flux_err
-    flux: float  # sky-subtracted sum above the line over the Sun's columns [linear]
+    flux: float  # sky-subtracted, over the Sun's columns, by area above the line [linear]
     flux_err: float
     apex_height_px: float  # upper limb's apex above the horizon; NaN if not measured
     apex_height_err_px: float
@@ -329,11 +359,12 @@ class _Sky:
     sigma: float  # pixel noise [linear]
     kappa: float  # variance inflation for sums (correlated noise) [-]
 
-    def on(self, fr: _Frame) -> np.ndarray:
-        """The model at every pixel of the frame."""
-        lo, frac = self.nodes.lo, self.nodes.frac
+    def on(self, fr: _Frame, part: tuple[slice, slice] = (slice(None), slice(None))
+           ) -> np.ndarray:
+        """The model at every pixel of the frame, or of its rows and columns ``part``."""
+        lo, frac = self.nodes.lo[part], self.nodes.frac[part]
         return (self.level[lo] * (1.0 - frac) + self.level[lo + 1] * frac
-                + self.g * (fr.s - self.s_mean))
+                + self.g * (fr.s[part] - self.s_mean))
 
     def at(self, s: float, h: float) -> float:
         return float(np.interp(h, self.nodes.h, self.level) + self.g * (s - self.s_mean))
@@ -416,15 +447,45 @@ def _significant_extent(snr, fr, inside, half, top) -> tuple[float, float]:
     return min(max(new_half, 6.0), half + 20.0), new_top
 
 
-def _flux(excess: np.ndarray, fr: _Frame, box: np.ndarray, sky: _Sky) -> tuple[float, float]:
-    """Sum of the excess in ``box`` and its error (noise, correlation, sky-model error)."""
-    n, nodes = int(box.sum()), sky.nodes
-    lo, frac = nodes.lo[box], nodes.frac[box]
-    weight = (np.bincount(lo, 1.0 - frac, minlength=nodes.h.size)
-              + np.bincount(lo + 1, frac, minlength=nodes.h.size))  # of each node's mean
+def _flux(excess: np.ndarray, share: np.ndarray, sky: _Sky) -> tuple[float, float]:
+    """Sum of the excess, each pixel weighted by its ``share`` of area above the line, and
+    its error (noise, correlation, sky-model error)."""
+    sel, nodes = share > 0, sky.nodes
+    w = share[sel]
+    lo, frac = nodes.lo[sel], nodes.frac[sel]
+    weight = (np.bincount(lo, w * (1.0 - frac), minlength=nodes.h.size)
+              + np.bincount(lo + 1, w * frac, minlength=nodes.h.size))  # of each node's mean
     model_var = np.sum(weight**2 / nodes.count) * sky.sigma**2
-    err = math.sqrt(sky.sigma**2 * sky.kappa * n + sky.kappa * model_var)
-    return float(np.sum(excess[box])), err
+    err = math.sqrt(sky.sigma**2 * sky.kappa * float(w @ w) + sky.kappa * model_var)
+    return float(w @ excess[sel]), err
+
+
+def _flux_share(fr: _Frame, half: float, top: float) -> np.ndarray:
+    """Weight of each pixel in the flux: its area above the line (:func:`_area_above`)
+    within the Sun's columns (``|s| <= half``) up to ``top``, else 0."""
+    cols = np.abs(fr.s) <= half
+    share = (cols & (fr.h > 0.75) & (fr.h <= top)).astype(float)
+    astride = cols & (np.abs(fr.h) <= 0.75)  # 0.75 > sqrt(2) / 2, a pixel's half-diagonal
+    share[astride] = _area_above(fr.h[astride], fr.slope)
+    return share
+
+
+def _area_above(h: np.ndarray, slope: float) -> np.ndarray:
+    """Share of each unit pixel's area above the line, from its centre's height ``h`` [px].
+
+    Across a pixel the height above the line changes by ``(slope dx - dy) / norm`` with
+    ``dx``, ``dy`` uniform on (-1/2, 1/2) and ``norm = sqrt(1 + slope^2)``: the sum of two
+    uniform variables of widths ``a = |slope| / norm`` and ``b = 1 / norm``, whose density
+    is a trapezoid. The share above is ``1 - F(-h)`` with ``F`` its distribution function,
+    quadratic on the slopes and linear between; ``clip(h + 1/2, 0, 1)`` for a level line.
+    """
+    norm = math.hypot(1.0, slope)
+    a, b = sorted((max(abs(slope) / norm, 1e-9), 1.0 / norm))
+    t = np.clip(-np.asarray(h, dtype=float), -0.5 * (a + b), 0.5 * (a + b))
+    lower = (t + 0.5 * (a + b)) ** 2 / (2.0 * a * b)
+    upper = 1.0 - (0.5 * (a + b) - t) ** 2 / (2.0 * a * b)
+    middle = (t + 0.5 * b) / b
+    return 1.0 - np.where(t < -0.5 * (b - a), lower, np.where(t > 0.5 * (b - a), upper, middle))
 
 
 # --- the limb model --------------------------------------------------------------------
@@ -490,6 +551,7 @@ class _ApexFit:
     top_err_px: float
     sigma_px: float
     ok: bool
+    coef: tuple[float, float, float] = (0.0, 0.0, 0.0)  # a, b and the sky offset [linear]
 
 
 def _levenberg_marquardt(fun, p0, lo, hi, max_iter: int = 20, tol: float = 2e-3):
@@ -601,7 +663,15 @@ def _fit_apex(values, h, drop, top0, sigma0, kappa, radius, ratio, prior_weight,
         var = np.nan
     inside = bool(np.all((p > lo + 1e-3) & (p < hi - 1e-3)))
     sig = math.exp(p[1]) if free else sigma0
-    return _ApexFit(float(p[0]), math.sqrt(max(var, 0.0)), sig, conv and inside)
+    step, ramp = _limb_basis(bins.h, p[0] - bins.drop, sig, radius)
+    a = np.column_stack([step, ramp, np.ones_like(step)]) * wt[:, None]
+    if free:  # the linear coefficients at the minimum (the prior row included)
+        c = _solve_linear(np.concatenate([a, prior]), target)
+    else:
+        c = _solve_linear(np.column_stack([a[:, 0] + ratio * a[:, 1], a[:, 2]]), target[:-1])
+        c = np.array([c[0], ratio * c[0], c[1]])
+    coef = (float(c[0]), float(c[1]), float(c[2]))
+    return _ApexFit(float(p[0]), math.sqrt(max(var, 0.0)), sig, conv and inside, coef)
 
 
 @dataclass(frozen=True)
@@ -830,6 +900,8 @@ class _Shape:
     sigma_px: float
     flags: tuple[str, ...]
     arc: tuple[float, float, float] | None = None  # (s_c, h_c, R_c) of the contour
+    # (T, s_c, R_c, sigma, a, b, offset) of the apex fit: the limb model (step 3)
+    model: tuple[float, ...] | None = None
 
 
 @dataclass(frozen=True)
@@ -844,6 +916,7 @@ class _Channel:
     radius_px: float | None
     prior_weight: float
     sigma_start: float | None = None  # the blur where the apex fit starts [px]
+    top_start: float | None = None  # the apex height where it starts (default: the arc's)
 
 
 def _thick(ch: _Channel, fr: _Frame, box, hint=None, memo=None) -> _Shape | None:
@@ -874,7 +947,8 @@ def _thick(ch: _Channel, fr: _Frame, box, hint=None, memo=None) -> _Shape | None
     group &= ch.usable
     if group.sum() < 30:
         return None
-    fit = _fit_apex(ch.excess[group], fr.h[group], drop[group], apex0 + 0.2, ch.sigma_h,
+    top0 = apex0 + 0.2 if ch.top_start is None else ch.top_start
+    fit = _fit_apex(ch.excess[group], fr.h[group], drop[group], top0, ch.sigma_h,
                     ch.sky.kappa, rc, _ramp_ratio(ch.name, rc), ch.prior_weight, not saturated,
                     ch.sigma_start)
     if not fit.ok or fit.sigma_px < MIN_LIMB_SIGMA_FRACTION * ch.sigma_h:
@@ -883,7 +957,8 @@ def _thick(ch: _Channel, fr: _Frame, box, hint=None, memo=None) -> _Shape | None
     wh = _side_width(ch.excess, fr, box, noise, arc, top, top - apex0, fit.sigma_px)
     if wh is None:  # too low for side edges: the circle's chord on the line
         wh = (2.0 * math.sqrt(max(2.0 * rc * top - top**2, 0.0)), top)
-    return _Shape(top, fit.top_err_px, sc, wh[0], wh[1], rc, fit.sigma_px, flags, arc)
+    return _Shape(top, fit.top_err_px, sc, wh[0], wh[1], rc, fit.sigma_px, flags, arc,
+                  (top, sc, rc, fit.sigma_px) + fit.coef)
 
 
 def _thin_top(sigma_px: float) -> float:
@@ -935,18 +1010,19 @@ def _thin(ch: _Channel, fr: _Frame, box) -> _Shape | None:
     return _Shape(top, err, float(p[1]), width, top, rc, sig, flags)
 
 
-def _measure_channel(name: str, plane, fr: _Frame, box, sky: _Sky, clip: float,
+def _measure_channel(name: str, plane, fr: _Frame, box, share, sky: _Sky, clip: float,
                      radius_px: float | None, prior_weight: float, hint=None,
                      thin: bool = True, memo: dict | None = None
                      ) -> tuple[ChannelLimb, _Shape | None]:
     """One channel: flux and visibility, then its limb: the arc and apex fit of a disc
     (:func:`_thick`, on ``hint``'s arc if its own is missing), else, if ``thin``, a thin
     segment (:func:`_thin`), unless ``hint``'s disc stands too high for the channel's
-    segment to be believed (:data:`MAX_CHANNEL_GAP_PX`). ``memo`` keeps the channel's
-    blur and arc between the first call (no hint) and a second one (with a hint)."""
+    segment to be believed (:data:`MAX_CHANNEL_GAP_PX`). ``share``: each pixel's weight
+    in the flux (:func:`_flux`). ``memo`` keeps the channel's blur, arc and data between
+    the first call (no hint) and later ones (with a hint, or a 4:2:0 refit)."""
     memo = {} if memo is None else memo
     excess = plane - sky.on(fr)
-    flux, err = _flux(excess, fr, box, sky)
+    flux, err = _flux(excess, share, sky)
     significance = flux / err if err > 0 else 0.0
     usable = plane < SATURATION_LEVEL * clip
     saturated = int(np.count_nonzero(box & ~usable)) >= 3
@@ -961,6 +1037,7 @@ def _measure_channel(name: str, plane, fr: _Frame, box, sky: _Sky, clip: float,
         memo["sigma"] = _horizon_sigma(sky, memo.get("horizon_start"))
     ch = _Channel(name, excess, usable, sky, memo["sigma"], radius_px, prior_weight,
                   memo.get("sigma_start"))
+    memo["channel"] = ch
     shape = _thick(ch, fr, box, hint, memo)
     if shape is None and thin and (hint is None or hint[1] + hint[2] - _thin_top(ch.sigma_h)
                                    <= MAX_CHANNEL_GAP_PX):
@@ -969,12 +1046,22 @@ def _measure_channel(name: str, plane, fr: _Frame, box, sky: _Sky, clip: float,
         return ChannelLimb(name, True, significance, flux, err, nan, nan, nan, nan, nan,
                            sky_here, sky_here + disc, saturated, flags + ("no-limb-fit",),
                            horizon_sigma_px=ch.sigma_h), None
+    memo["limb"] = ChannelLimb(name, True, significance, flux, err, nan, nan, nan, nan, nan,
+                               sky_here, sky_here + disc, saturated, flags,
+                               horizon_sigma_px=ch.sigma_h)
+    return _with_shape(memo["limb"], shape, fr, sky), shape
+
+
+def _with_shape(limb: ChannelLimb, shape: _Shape, fr: _Frame, sky: _Sky) -> ChannelLimb:
+    """``limb`` (flux and visibility measured, no limb yet) with the limb ``shape``."""
     x_apex, _ = fr.to_image(shape.s_c, shape.apex_px)
     sky_apex = sky.at(shape.s_c, shape.apex_px + 3.0)
-    return ChannelLimb(name, True, significance, flux, err, shape.apex_px, shape.apex_err_px,
-                       x_apex, shape.width_px, shape.height_px, sky_apex, sky_apex + disc,
-                       saturated, flags + shape.flags, shape.radius_px, shape.sigma_px,
-                       ch.sigma_h), shape
+    return dataclasses.replace(
+        limb, apex_height_px=shape.apex_px, apex_height_err_px=shape.apex_err_px,
+        apex_x_px=x_apex, width_px=shape.width_px, height_px=shape.height_px,
+        sky_level=sky_apex, disc_level=sky_apex + limb.disc_level - limb.sky_level,
+        flags=limb.flags + shape.flags, curvature_radius_px=shape.radius_px,
+        edge_sigma_px=shape.sigma_px)
 
 
 def _missing(flag: str) -> dict[str, ChannelLimb]:
@@ -987,7 +1074,9 @@ def measure_limbs(image: np.ndarray, line: HorizonLine, sun: SunLocation, *,
                   noise: float | dict[str, float] | None = None,
                   radius_px: float | None = None, clip_level: float = 1.0,
                   ramp_prior_weight: float = RAMP_PRIOR_WEIGHT,
-                  previous: dict[str, ChannelLimb] | None = None) -> dict[str, ChannelLimb]:
+                  previous: dict[str, ChannelLimb] | None = None,
+                  chroma_luma: tuple[float, float, float] | None = None
+                  ) -> dict[str, ChannelLimb]:
     """Measure each channel's Sun above the horizon: flux, visibility, upper limb, extent.
 
     Parameters
@@ -1017,6 +1106,12 @@ def measure_limbs(image: np.ndarray, line: HorizonLine, sun: SunLocation, *,
         The previous frame's result: its blurs (``edge_sigma_px``, ``horizon_sigma_px``)
         are where this frame's fits start, which then converge in fewer steps to the same
         minimum.
+    chroma_luma : (K_R, K_G, K_B), optional
+        Luma weights of a source whose colour was stored as 4:2:0 (JPEG:
+        :data:`LUMA_BT601`; HD video: :data:`LUMA_BT709`): the leak of the channels'
+        edges into each other through the half-resolution chroma is predicted and removed
+        (module docstring, "4:2:0 colour"), at the cost of a second apex fit per channel.
+        None (default) for colour at full resolution.
 
     Returns
     -------
@@ -1034,6 +1129,7 @@ def measure_limbs(image: np.ndarray, line: HorizonLine, sun: SunLocation, *,
         return _missing("near-frame-edge")
     half, top, beside = _sun_box(crop, fr, sun)
     box = (np.abs(fr.s) <= half) & (fr.h > 0) & (fr.h <= top)
+    share = _flux_share(fr, half, top)
     extra = _box_flags(fr, half, top, beside)
     out = {}
     if _nodes(fr, beside) is None:  # nothing beside the Sun: the sky above it
@@ -1047,16 +1143,94 @@ def measure_limbs(image: np.ndarray, line: HorizonLine, sun: SunLocation, *,
         if skies[c] is None:
             out[c] = _missing("no-sky-reference")[c]
             continue
-        out[c], shapes[c] = _measure_channel(c, crop[..., i], fr, box, skies[c], clip_level,
-                                             radius_px, ramp_prior_weight, thin=False,
-                                             memo=memos[c])
+        out[c], shapes[c] = _measure_channel(c, crop[..., i], fr, box, share, skies[c],
+                                             clip_level, radius_px, ramp_prior_weight,
+                                             thin=False, memo=memos[c])
     hint = _best_arc(out, shapes)
     for i, c in enumerate(CHANNELS):  # channels without an arc: another's, or thin
         if c in shapes and out[c].visible and shapes[c] is None:
-            out[c] = _second_pass(out[c], hint, lambda h: _measure_channel(
-                c, crop[..., i], fr, box, skies[c], clip_level, radius_px,
+            out[c], shapes[c] = _second_pass(out[c], hint, lambda h: _measure_channel(
+                c, crop[..., i], fr, box, share, skies[c], clip_level, radius_px,
                 ramp_prior_weight, h, memo=memos[c]))
+    if chroma_luma is not None and len(skies) == 3 and all(skies.values()):
+        out = _refit_420(out, shapes, crop, fr, box, skies, memos, chroma_luma)
     return {c: dataclasses.replace(lm, flags=lm.flags + extra) for c, lm in out.items()}
+
+
+# --- 4:2:0 chroma -------------------------------------------------------------------------
+
+
+def _refit_420(out: dict[str, ChannelLimb], shapes: dict, crop: np.ndarray, fr: _Frame, box,
+               skies: dict[str, _Sky], memos: dict[str, dict], luma) -> dict[str, ChannelLimb]:
+    """Each channel with a fitted disc, fitted again without the 4:2:0 chroma leak that
+    the channels' limb models predict (module docstring), the most significant first;
+    each refit's model predicts the leak for the next. Channels without a disc model
+    enter the prediction as their decoded pixels."""
+    order = sorted((c for c in CHANNELS if shapes.get(c) is not None
+                    and shapes[c].model is not None), key=lambda c: -out[c].significance)
+    part = _leak_region(fr, box, [shapes[c].model for c in order])
+    if part is None:
+        return out
+    out = dict(out)
+    sky = [skies[c].on(fr, part) for c in CHANNELS]
+    light = [_model_light(shapes[c].model, fr, part, sky[i]) if c in order
+             else crop[part][..., i].astype(float) for i, c in enumerate(CHANNELS)]
+    for c in order:
+        i, shape = CHANNELS.index(c), shapes[c]
+        ch = memos[c]["channel"]
+        excess = ch.excess.copy()
+        excess[part] -= _leak_420(light, sky, luma)[i]
+        hint = shape.arc if "arc-from-other-channel" in shape.flags else None
+        again = _thick(dataclasses.replace(ch, excess=excess, sigma_start=shape.sigma_px,
+                                           top_start=shape.apex_px), fr, box, hint, memos[c])
+        if again is not None:
+            out[c] = _with_shape(memos[c]["limb"], again, fr, skies[c])
+            light[i] = _model_light(again.model, fr, part, sky[i])
+    return out
+
+
+def _leak_region(fr: _Frame, box, models) -> tuple[slice, slice] | None:
+    """Rows and columns of the crop around every apex fit's pixels, with room for the
+    chroma's vertical spread; None if there are none."""
+    tops, sigma = [m[0] for m in models], max((m[3] for m in models), default=1.0)
+    near = np.zeros_like(box)
+    for top, sc, rc, *_ in models:
+        near |= np.abs(fr.s - sc) <= math.sqrt(2.0 * rc * GROUP_DROP_PX) + 3.0
+    near &= box & (fr.h > min(tops, default=0.0) - 3.0 * sigma - 10.0)
+    near &= fr.h < max(tops, default=0.0) + 3.0 * sigma + 6.0
+    if not near.any():
+        return None
+    return _box_slices(near, CHROMA_420_KERNEL.size // 2 + 1)
+
+
+def _model_light(model, fr: _Frame, part: tuple[slice, slice], sky: np.ndarray) -> np.ndarray:
+    """Sky plus a channel's fitted limb model on the crop's rows and columns ``part``."""
+    top, sc, rc, sigma, a, b, offset = model
+    s, h = fr.s[part], fr.h[part]
+    step, ramp = _limb_basis(h, top - (s - sc) ** 2 / (2.0 * rc), sigma, rc)
+    return sky + offset + a * step + b * ramp
+
+
+def _leak_420(light: list[np.ndarray], sky: list[np.ndarray], luma) -> list[np.ndarray]:
+    """What 4:2:0 chroma adds to each channel's excess over the sky model [linear].
+
+    ``light`` and ``sky``: the three channels' linear light, with and without the Sun,
+    on the same image rows (axis 0). Each is encoded (sRGB), its colour difference from
+    the luma ``sum K_i X'_i`` spread by :data:`CHROMA_420_KERNEL` and decoded: the
+    decoded minus the true light, less the same for the sky alone (already in the sky
+    model, which went through the codec alike).
+    """
+    def through_codec(planes):
+        code = [linear_to_srgb(np.maximum(p, 0.0)) for p in planes]
+        luma_code = sum(k * x for k, x in zip(luma, code))
+        out = []
+        for p, x in zip(planes, code):
+            diff = x - luma_code
+            spread = ndimage.convolve1d(diff, CHROMA_420_KERNEL, axis=0, mode="nearest")
+            out.append(srgb_to_linear(x + spread - diff) - np.maximum(p, 0.0))
+        return out
+
+    return [a - b for a, b in zip(through_codec(light), through_codec(sky))]
 
 
 def _starts(limb: ChannelLimb | None) -> dict[str, float]:
@@ -1067,18 +1241,18 @@ def _starts(limb: ChannelLimb | None) -> dict[str, float]:
     return {k: float(v) for k, v in pairs if np.isfinite(v)}
 
 
-def _second_pass(limb: ChannelLimb, hint, measure) -> ChannelLimb:
+def _second_pass(limb: ChannelLimb, hint, measure) -> tuple[ChannelLimb, _Shape | None]:
     """A channel without an arc of its own: measured on another channel's arc ``hint``
     (when there is one) or as a thin segment; a thin apex far below the hint's disc is
-    not believed."""
+    not believed. Returns the limb and its shape (None if not believed)."""
     again, shape = measure(hint)
     if hint is None or (shape is not None and shape.arc is not None):
-        return again
+        return again, shape
     if hint[1] + hint[2] - again.apex_height_px > MAX_CHANNEL_GAP_PX:
         return dataclasses.replace(again, apex_height_px=np.nan, apex_height_err_px=np.nan,
                                    width_px=np.nan, height_px=np.nan,
-                                   flags=again.flags + ("no-limb-fit",))
-    return again
+                                   flags=again.flags + ("no-limb-fit",)), None
+    return again, shape
 
 
 def _best_arc(limbs: dict[str, ChannelLimb], shapes: dict) -> tuple[float, float, float] | None:

@@ -7,14 +7,8 @@ duration, the green limb's height above the red one (corrected for the lens's ow
 colour offset) and the disc's geometry (plate scale from its width, flattening).
 
 Last light
-    The channel's last frame with significant sun above the horizon is found (a lone
-    significant frame after a dark run is a noise blip and ignored). In the final
-    seconds a limb segment of height ``h`` has a flux ``F ~ h^1.5`` and ``h`` falls
-    linearly with time, so ``F^(2/3)`` is linear in time: fitted over the last visible
-    frames, it is extrapolated to the detection threshold (the visibility significance
-    times the flux noise) to interpolate the crossing between the last bright and the
-    first dark frame. Where the fit is not possible the crossing is the midpoint, with
-    the frame spacing over sqrt(12) as its uncertainty.
+    See :mod:`analyse.lastlight` (re-exported here): where the flux above the line falls
+    through the detection fraction of the whole disc's flux.
 
 Disc geometry
     The image of the disc cut by the horizon is an ellipse with horizontal semi-axis
@@ -30,7 +24,16 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from analyse.disc import blur_fraction_above
-from analyse.predict import DETECTION_FRACTION
+from analyse.lastlight import (
+    VISIBILITY_SIGMA,
+    LastLight,
+    chord_depth,
+    default_limb_u,
+    disc_flux_from_chords,
+    last_light,
+    segment_depth,
+    segment_fraction,
+)
 
 __all__ = [
     "CHANNELS",
@@ -40,6 +43,10 @@ __all__ = [
     "DiscGeometry",
     "Observables",
     "last_light",
+    "segment_fraction",
+    "segment_depth",
+    "chord_depth",
+    "disc_flux_from_chords",
     "green_above_red",
     "disc_geometry",
     "exposure_changes",
@@ -48,11 +55,7 @@ __all__ = [
 ]
 
 CHANNELS = ("r", "g", "b")
-VISIBILITY_SIGMA = 5.0  # significance for "sun above the horizon" (common practice, no source)
 OFFSET_WINDOW_S = 60.0  # FOLDER-FORMAT.md: median over the final 60 s before red last light
-_FIT_FRAMES = 6
-LEVEL_SNR = 10.0  # the detection level must stand this far above the flux noise to be
-# measured directly (common practice, no source)  # last visible frames used for the fading fit
 
 
 @dataclass(frozen=True)
@@ -99,140 +102,6 @@ class FrameTable:
 
     def __len__(self) -> int:
         return int(self.t_unix_s.size)
-
-
-@dataclass(frozen=True)
-class LastLight:
-    """When a channel's light fell below the detection level above the horizon."""
-
-    channel: str
-    t_unix_s: float  # NaN when not measurable
-    err_s: float
-    last_visible_index: int  # -1 if never visible
-    first_dark_index: int  # -1 if never dark after being visible
-    method: str  # how it was found, or why it is not measurable
-    threshold_flux: float  # noise threshold [linear flux units]
-    detection_limit_unix_s: float = float("nan")  # when the light sank into the noise
-
-
-def last_light(t_unix_s, visible, flux, flux_err, *, channel: str = "",
-               sigma: float = VISIBILITY_SIGMA, disc_flux: float | None = None,
-               detection_fraction: float = DETECTION_FRACTION, height_px=None,
-               blur_px: float | None = None) -> LastLight:
-    """Last light of one channel from its per-frame visibility and flux.
-
-    With ``disc_flux`` (the whole disc's flux in the recording's units) last light is
-    where the visible flux falls through ``detection_fraction`` of it, the definition
-    the forward model uses: the fading law is fitted to the frames between 2 and 60
-    times that level (each divided by the share of a segment's light that blur leaves
-    above the line, from ``height_px`` and ``blur_px``) and solved for the level.
-    Without it, or where that fit is impossible, last light is where the flux sinks into
-    the noise (``sigma`` times its error), interpolated between the last bright and the
-    first dark frame.
-
-    Parameters
-    ----------
-    t_unix_s : (N,) ndarray
-        Frame times, increasing [s].
-    visible : (N,) ndarray of bool
-    flux, flux_err : (N,) ndarray
-        Visible flux above the horizon and its 1-sigma error [linear units].
-    """
-    t = np.asarray(t_unix_s, dtype=float)
-    vis = _drop_blips(np.asarray(visible, dtype=bool))
-    f = np.asarray(flux, dtype=float)
-    fe = np.asarray(flux_err, dtype=float)
-    thr = float(sigma * np.nanmedian(fe)) if np.any(np.isfinite(fe)) else float("nan")
-    idx = np.flatnonzero(vis)
-    if idx.size == 0:
-        return LastLight(channel, np.nan, np.nan, -1, -1, "never visible", thr)
-    i = int(idx[-1])
-    if i == t.size - 1:
-        return LastLight(channel, np.nan, np.nan, i, -1, "still visible in the last frame", thr)
-    limit, limit_err, how = _noise_crossing(t, f, fe, vis, i, thr)
-    noise = float(np.nanmedian(fe[max(0, i - 20): i + 1])) if np.any(np.isfinite(fe)) else 0.0
-    faint = disc_flux is not None and detection_fraction * disc_flux < LEVEL_SNR * noise
-    if faint:
-        how = (f"{how} (this channel's disc is too faint for {detection_fraction:g} of it to "
-               f"stand {LEVEL_SNR:g} times above the noise)")
-    if not faint and disc_flux is not None and np.isfinite(disc_flux) and disc_flux > 0:
-        frac = f / disc_flux
-        if height_px is not None and blur_px is not None and np.isfinite(blur_px):
-            h = np.nan_to_num(np.asarray(height_px, dtype=float), nan=0.0)
-            frac = frac / blur_fraction_above(np.maximum(h, 0.0), blur_px)
-        tc, tc_err = _level_crossing(t[: i + 1], frac[: i + 1], vis[: i + 1],
-                                     detection_fraction)
-        if np.isfinite(tc) and t[0] <= tc <= t[i + 1] + 2.0 * (t[i + 1] - t[i]):
-            return LastLight(channel, tc, max(tc_err, 0.01 * (t[i + 1] - t[i])), i, i + 1,
-                             f"fading fit to {detection_fraction:g} of the disc", thr, limit)
-    return LastLight(channel, limit, limit_err, i, i + 1, how, thr, limit)
-
-
-def _drop_blips(vis: np.ndarray) -> np.ndarray:
-    """A lone significant frame after at least two dark ones is a blip, not the sun."""
-    vis = vis.copy()
-    idx = np.flatnonzero(vis)
-    while idx.size > 1:
-        i = idx[-1]
-        if i >= 2 and not vis[i - 1] and not vis[i - 2]:
-            vis[i] = False
-            idx = idx[:-1]
-            continue
-        break
-    return vis
-
-
-def _noise_crossing(t, f, fe, vis, i, thr):
-    """Where the flux sinks into the noise, between frame i (bright) and i + 1 (dark)."""
-    t0, t1 = t[i], t[i + 1]
-    mid, mid_err = 0.5 * (t0 + t1), (t1 - t0) / np.sqrt(12.0)
-    sel = np.flatnonzero(vis[: i + 1] & np.isfinite(f[: i + 1]) & (f[: i + 1] > 0))
-    tc, tc_err = _fit_fading(t[sel][-_FIT_FRAMES:], f[sel][-_FIT_FRAMES:],
-                             fe[sel][-_FIT_FRAMES:], thr)
-    slack = 3.0 * tc_err + 0.5 * (t1 - t0) if np.isfinite(tc_err) else 0.0
-    if np.isfinite(tc) and t0 - slack <= tc <= t1 + slack:
-        # Detected at t0, not at t1: the crossing lies between, whatever the noise says.
-        err = float(np.hypot(tc_err, 0.05 * (t1 - t0)))
-        return float(np.clip(tc, t0, t1)), min(err, mid_err), "noise limit, fading fit"
-    return float(mid), float(mid_err), "noise limit, midpoint"
-
-
-def _level_crossing(t, frac, vis, level):
-    """Fit the fading law to frames between 2 and 60 times ``level``; time it hits ``level``.
-
-    ``F^(2/3)`` is only nearly linear in time (limb darkening adds an ``h^2`` term): on
-    noise-free model light curves (35 deg N, 10 fps) the extrapolation lands 0.07 s (red)
-    to 0.11 s (green) early. Narrower windows are less biased on the model but worse on
-    rendered frames, whose faintest frames carry the blur correction's error.
-    """
-    sel = np.flatnonzero(vis & np.isfinite(frac) & (frac > 2.0 * level) & (frac < 60.0 * level))
-    if sel.size < 3 or np.ptp(t[sel]) <= 0:
-        return np.nan, np.nan
-    y = frac[sel]
-    # Relative scatter of the flux about the law sets the weights (shake, JPEG, glitter).
-    return _fit_fading(t[sel], y, 0.05 * y, level)
-
-
-def _fit_fading(t, f, fe, threshold):
-    """Fit F^(2/3) linear in t; the time it reaches ``threshold`` and its error."""
-    if t.size < 3 or not np.isfinite(threshold) or threshold <= 0:
-        return np.nan, np.nan
-    tt = t - t[-1]
-    y = f ** (2.0 / 3.0)
-    y_err = (2.0 / 3.0) * np.maximum(fe, 1e-30) * f ** (-1.0 / 3.0)
-    w = 1.0 / y_err**2
-    a = np.vstack([np.ones_like(tt), tt]).T
-    cov = np.linalg.pinv(a.T @ (a * w[:, None]))
-    c0, c1 = cov @ (a.T @ (w * y))
-    if not c1 < 0:
-        return np.nan, np.nan
-    chi2 = float(np.sum(w * (y - a @ np.array([c0, c1])) ** 2))
-    cov = cov * max(chi2 / max(t.size - 2, 1), 1.0)  # scatter beyond the stated errors
-    y_thr = threshold ** (2.0 / 3.0)
-    dt = (y_thr - c0) / c1
-    grad = np.array([-1.0 / c1, -(y_thr - c0) / c1**2])
-    err = float(np.sqrt(max(grad @ cov @ grad, 0.0)))
-    return float(t[-1] + dt), err
 
 
 def green_above_red(table: FrameTable, *, t_last_red: float, plate_scale_arcsec_per_px: float,
@@ -359,6 +228,22 @@ def disc_flux_scale(height_px, flux, visible, *, blur_px: float, model_height_px
     return float(np.median(ratio)) if ratio.size >= 3 else float("nan")
 
 
+def _chord_disc_flux(table: FrameTable, blur, dy, semidiameter_px, limb_u, fallback):
+    """Per channel: :func:`disc_flux_from_chords` where it gives a value, else ``fallback``."""
+    out = dict(fallback)
+    if semidiameter_px is None or not np.isfinite(semidiameter_px):
+        return out
+    for c in CHANNELS:
+        b = blur[c] if np.isfinite(blur[c]) else 1.0
+        d = disc_flux_from_chords(table.apex_height_px[c] + dy.get(c, 0.0), table.width_px[c],
+                                  table.flux[c], table.visible[c], blur_px=b,
+                                  radius_px=semidiameter_px, limb_u=limb_u[c],
+                                  max_height_px=0.3 * semidiameter_px)
+        if np.isfinite(d):
+            out[c] = d
+    return out
+
+
 @dataclass(frozen=True)
 class Observables:
     """The sequence's observables (FOLDER-FORMAT.md's result.json "observables")."""
@@ -382,20 +267,35 @@ class Observables:
 def sequence_observables(table: FrameTable, *, plate_scale_arcsec_per_px: float,
                          plate_scale_source: str, colour_offset_dy_px: dict[str, float],
                          colour_offset_source: str, geometry: DiscGeometry,
-                         disc_flux: dict[str, float] | None = None) -> Observables:
+                         disc_flux: dict[str, float] | None = None,
+                         limb_u: dict[str, float] | None = None,
+                         semidiameter_px: float | None = None) -> Observables:
     """Last light per channel, green duration and green-above-red offset.
 
-    ``disc_flux`` (per channel, the whole disc's flux in the recording's units) makes
-    last light the moment the visible flux falls below the model's detection fraction
-    of the disc; without it, the moment it sinks into the noise.
+    Last light is the moment the visible flux falls below the model's detection
+    fraction of the whole disc's flux, which comes from the thin segments' chords
+    (:func:`disc_flux_from_chords`, with the disc's true semidiameter ``semidiameter_px``
+    [px], by default the ephemeris's at the first frame over the plate scale); where the
+    chords give none, from ``disc_flux`` (per channel, in the recording's units); without
+    either, last light is the moment the flux sinks into the noise. ``limb_u`` (per
+    channel, the band-weighted linear limb-darkening coefficient) enters both; default
+    that of the channels' nominal wavelengths.
     """
     notes: list[str] = []
-    disc_flux = disc_flux or {}
+    limb_u = {c: (limb_u or {}).get(c, default_limb_u(c)) for c in CHANNELS}
     blur = {c: float(np.nanmedian(table.edge_sigma_px[c]))
             if np.any(np.isfinite(table.edge_sigma_px[c])) else float("nan") for c in CHANNELS}
+    if semidiameter_px is None and len(table) and np.isfinite(plate_scale_arcsec_per_px):
+        from analyse.sun import sun_track  # the semidiameter depends on the date alone
+
+        sd = sun_track(table.t_unix_s[:1], 0.0, 0.0).semidiameter_arcsec[0]
+        semidiameter_px = float(sd) / plate_scale_arcsec_per_px
+    disc_flux = _chord_disc_flux(table, blur, colour_offset_dy_px, semidiameter_px, limb_u,
+                                 disc_flux or {})
     last = {c: last_light(table.t_unix_s, table.visible[c], table.flux[c], table.flux_err[c],
                           channel=c, disc_flux=disc_flux.get(c),
-                          height_px=table.apex_height_px[c], blur_px=blur[c])
+                          height_px=table.apex_height_px[c], blur_px=blur[c],
+                          limb_u=limb_u[c])
             for c in CHANNELS}
     for c, ll in last.items():
         if not np.isfinite(ll.t_unix_s):

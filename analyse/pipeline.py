@@ -9,10 +9,12 @@ on a crop around the Sun, so that the cost of the limb fits is set by the Sun's 
 the frame's.
 
 Speed (scripts/bench_measure.py): frames are decoded and linearised a few frames ahead
-in a background thread, while this thread measures the previous one. The lens's colour
-offsets on the horizon, which only feed a median, are measured on every frame of a short
-recording and on every few frames of a long one (at least :data:`_COLOUR_SAMPLES`
-frames). The limb fits (:func:`analyse.limb.measure_limbs`) take most of the time.
+in a background thread, while this thread registers the previous one. The limb fits
+(:func:`analyse.limb.measure_limbs`, about two thirds of the time) run in a worker
+process for long recordings (:mod:`analyse._limbworker`; the same numbers as here). The
+lens's colour offsets on the horizon, which only feed a median, are measured on every
+frame of a short recording and on every few frames of a long one (at least
+:data:`_COLOUR_SAMPLES` frames).
 
 Frames stream through: memory stays flat in the recording's length. Only the per-frame
 table grows (a few hundred bytes a frame) and small crops of the final visible frames are
@@ -23,6 +25,7 @@ from __future__ import annotations
 
 import collections
 import dataclasses
+import os
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -31,6 +34,7 @@ import numpy as np
 
 from analyse import horizon as hz
 from analyse import limb as lb
+from analyse._limbworker import LimbMeasurer
 from analyse.errors import InputError
 from analyse.frames import FrameSet, iter_frames, open_frames
 from analyse.measure import (
@@ -51,6 +55,7 @@ _STRIP_KEEP = 48  # crops of the final visible frames kept for the report
 _CROP_HALF_WIDTH_PX = 90
 _CROP_ABOVE_PX = 48
 _CROP_BELOW_PX = 16
+_PARALLEL_MIN_FRAMES = 300  # recordings this long measure their limbs in a worker process
 _PREFETCH_FRAMES = 1  # frames decoded ahead in a background thread (each 24 MB at 1080p)
 # The horizon's colour offsets scatter by about 0.12-0.18 px (r) from frame to frame
 # (measured on the demo folder and on 1080p H.264), so a median of 300 frames is good to
@@ -195,9 +200,13 @@ def _sun_columns(sun: lb.SunLocation) -> tuple[float, float] | None:
     return sun.x_px - 1.3 * sun.radius_px - 10, sun.x_px + 1.3 * sun.radius_px + 10
 
 
-def _measure_frame(img, prior, sun_prior, previous=None):
-    """Horizon, Sun and limbs of one frame; returns (line, sun, limbs, flags, box).
-    ``previous``: the previous frame's limbs, where the fits start."""
+def _register(img, prior, sun_prior):
+    """Sun and horizon of one frame and the crop for its limbs.
+
+    Returns (line, sun, flags, box, job): ``job`` is (crop, line, sun) in crop
+    coordinates for :func:`analyse.limb.measure_limbs`, or None (no horizon or no Sun,
+    flagged) and then ``box`` is None too.
+    """
     flags: list[str] = []
     sun = lb.locate_sun(img, prior if prior is not None and prior.found else None)
     if not sun.found and sun_prior is not None:
@@ -207,18 +216,25 @@ def _measure_frame(img, prior, sun_prior, previous=None):
     if not line.found and prior is not None:
         line = hz.find_horizon(img, exclude_x=exclude)
     if not line.found:
-        flags.append("no-horizon")
-        return line, sun, {}, flags, None
+        return line, sun, flags + ["no-horizon"], None, None
     if not sun.found:
-        flags.append("no-sun")
-        return line, sun, {}, flags, None
+        return line, sun, flags + ["no-sun"], None, None
     y0, y1, x0, x1 = _crop_box(sun, line, img.shape)
-    crop = img[y0:y1, x0:x1]
     sun_c = dataclasses.replace(sun, x_px=sun.x_px - x0, y_px=sun.y_px - y0)
-    limbs = lb.measure_limbs(crop, _shift_line(line, x0, y0), sun_c, previous=previous)
-    for c, lm in limbs.items():
-        flags.extend(f"{c}:{f}" for f in lm.flags)
-    return line, sun, limbs, flags, (y0, y1, x0, x1)
+    job = (img[y0:y1, x0:x1], _shift_line(line, x0, y0), sun_c)
+    return line, sun, flags, (y0, y1, x0, x1), job
+
+
+def _measure_frame(img, prior, sun_prior, previous=None):
+    """Horizon, Sun and limbs of one frame; returns (line, sun, limbs, flags, box).
+    ``previous``: the previous frame's limbs, where the fits start."""
+    line, sun, flags, box, job = _register(img, prior, sun_prior)
+    limbs = {} if job is None else lb.measure_limbs(*job, previous=previous)
+    return line, sun, limbs, flags + _limb_flags(limbs), box
+
+
+def _limb_flags(limbs: dict[str, lb.ChannelLimb]) -> list[str]:
+    return [f"{c}:{f}" for c, lm in limbs.items() for f in lm.flags]
 
 
 def _strip_crop(img, line, limbs, info) -> StripFrame | None:
@@ -295,29 +311,67 @@ def _colour_stride(n_frames: int) -> int:
     return max(1, min(_COLOUR_STRIDE_MAX, n_frames // _COLOUR_SAMPLES))
 
 
+def _chroma_luma(fs: FrameSet) -> tuple[float, float, float] | None:
+    """Luma weights of a 4:2:0 video for :func:`analyse.limb.measure_limbs`, whose
+    colour leak between channels they predict (BT.709: HD video's matrix and that of
+    ``limbtrace simulate``).
+
+    Not for JPEG stills: there the horizon's own codec bias (+0.27 px on the simulated
+    q85 recording, analyse/horizon.py "Limits") is partly offset by the uncorrected leak,
+    and correcting the limb alone made the green apex worse (0.26 -> 0.47 px).
+    """
+    if fs.kind != "video" or fs.chroma_subsampling != "4:2:0":
+        return None
+    return lb.LUMA_BT709
+
+
 def _measure_frames(fs: FrameSet, tick: Callable[[], object], *,
                     colour_stride: int | None = None,
-                    prefetch: int = _PREFETCH_FRAMES) -> _Results:
-    """The frame loop; ``tick`` is called once per frame (a progress bar)."""
+                    prefetch: int = _PREFETCH_FRAMES,
+                    parallel: bool | None = None) -> _Results:
+    """The frame loop; ``tick`` is called once per frame (a progress bar).
+
+    ``parallel``: measure the limbs in a worker process (:mod:`analyse._limbworker`);
+    by default for recordings of :data:`_PARALLEL_MIN_FRAMES` frames or more on a
+    machine with two or more cores. The numbers are the same either way.
+    """
     res = _Results(len(fs.infos))
     stride = colour_stride or _colour_stride(len(fs.infos))
-    prior = sun_prior = previous = None
+    if parallel is None:
+        parallel = len(fs.infos) >= _PARALLEL_MIN_FRAMES and (os.cpu_count() or 1) >= 2
+    prior = sun_prior = None
     lines = 0
-    for info, img in iter_frames(fs, on_error="skip", prefetch=prefetch):
-        tick()
+    waiting: collections.deque = collections.deque()  # frames whose limbs are pending
+
+    def finish(limbs_of: LimbMeasurer) -> None:
+        info, img, line, flags, box = waiting.popleft()
         if img is None:
-            res.cols.add(info, None, {}, ["unreadable"])
-            continue
-        line, sun, limbs, flags, box = _measure_frame(img, prior, sun_prior, previous)
-        res.add(info, img, line, limbs, flags, box)
-        previous = limbs or previous
-        if line.found:
-            if lines % stride == 0:
-                res.add_colour(hz.horizon_colour_offsets(img, line,
-                                                         exclude_x=_sun_columns(sun)))
-            prior, lines = line, lines + 1
-        if sun.found:
-            sun_prior = sun
+            res.cols.add(info, None, {}, flags)
+            return
+        limbs = limbs_of.result() if box is not None else {}
+        res.add(info, img, line, limbs, flags + _limb_flags(limbs), box)
+
+    with LimbMeasurer(parallel, chroma_luma=_chroma_luma(fs)) as limbs_of:
+        for info, img in iter_frames(fs, on_error="skip", prefetch=prefetch):
+            tick()
+            if img is None:
+                waiting.append((info, None, None, ["unreadable"], None))
+            else:
+                line, sun, flags, box, job = _register(img, prior, sun_prior)
+                if job is not None:
+                    limbs_of.submit(*job)
+                waiting.append((info, img, line, flags, box))
+                if line.found:
+                    if lines % stride == 0:
+                        res.add_colour(hz.horizon_colour_offsets(
+                            img, line, exclude_x=_sun_columns(sun)))
+                    prior, lines = line, lines + 1
+                if sun.found:
+                    sun_prior = sun
+            while waiting and (waiting[0][4] is None or limbs_of.ready()):
+                finish(limbs_of)
+        while waiting:
+            finish(limbs_of)
     return res
 
 
@@ -356,30 +410,31 @@ def _colour_offsets(calib: dict | None, colour_dy: dict[str, list[float]], sun_x
 
 
 def _disc_flux(obs, table: FrameTable, track, sd_arcsec: float, scale: float, dy,
-               calib) -> dict[str, float]:
-    """Each channel's whole-disc flux in the recording's units (see measure.disc_flux_scale).
-
-    The visible fraction against apex height comes from the forward model in the
-    standard atmosphere: near the horizon it is set mostly by the disc's geometry, so the
-    lapse rate matters little here (the fit redoes it per trial where it matters).
+               calib) -> tuple[dict[str, float], dict[str, float]]:
+    """Each channel's whole-disc flux in the recording's units by the standard
+    atmosphere's visible fraction (see measure.disc_flux_scale; the fallback of
+    :func:`analyse.measure.sequence_observables`, which takes it from the thin segments'
+    chords), and each channel's band-weighted limb-darkening coefficient.
     """
     from analyse.infer import _conditions
     from analyse.predict import build_model, light_by_height
 
     if not np.isfinite(scale):
-        return {}
+        return {}, {}
     model = build_model(_conditions(obs), 6.5, bands=bands_for(calib, obs.camera.calibration),
                         azimuth_deg=float(np.median(track.azimuth_deg)), rays=32,
                         span_arcmin=20.0)
-    out = {}
+    out, limb_u = {}, {}
     for c in CHANNELS:
+        ch = model.channels[c]
+        limb_u[c] = float(np.average(model.u_limb[ch.node_index], weights=ch.weights))
         _, h, v = light_by_height(model, c, sd_arcsec)
         sig = table.edge_sigma_px[c]
         blur = float(np.nanmedian(sig)) if np.any(np.isfinite(sig)) else 1.0
         out[c] = disc_flux_scale(table.apex_height_px[c] + dy.get(c, 0.0), table.flux[c],
                                  table.visible[c], blur_px=blur, model_height_px=h / scale,
                                  model_fraction=v, max_height_px=0.3 * sd_arcsec / scale)
-    return out
+    return out, limb_u
 
 
 def _observables(fs, obs, table: FrameTable, colour_dy, strip) -> Measurement:
@@ -406,10 +461,11 @@ def _observables(fs, obs, table: FrameTable, colour_dy, strip) -> Measurement:
         table.apex_x_px["g"])) else 0.5 * fs.width
     y_sun = float(np.nanmedian(table.horizon_row_px))
     dy, dy_source = _colour_offsets(calib, colour_dy, (x_sun, y_sun))
-    disc_flux = _disc_flux(obs, table, track, sd, scale, dy, calib)
+    disc_flux, limb_u = _disc_flux(obs, table, track, sd, scale, dy, calib)
     observables = sequence_observables(
         table, plate_scale_arcsec_per_px=scale, plate_scale_source=scale_source,
         colour_offset_dy_px=dy, colour_offset_source=dy_source, geometry=geometry,
-        disc_flux=disc_flux)
+        disc_flux=disc_flux, limb_u=limb_u,
+        semidiameter_px=sd / scale if np.isfinite(scale) else None)
     return Measurement(fs, table, observables, track.altitude_deg, sd, strip, calib,
                        tuple(notes) + observables.notes)

@@ -124,15 +124,17 @@ def _same(a: float, b: float) -> bool:
     return (np.isnan(a) and np.isnan(b)) or abs(a - b) <= 1e-9 * max(1.0, abs(a))
 
 
-@pytest.mark.parametrize("prefetch", [0, 2])
-def test_loop_gives_the_reference_table(sunset, reference, prefetch):
-    # With or without the read-ahead thread: the same computations on the same pixels,
-    # so the same numbers (1e-9 allows for nothing but rounding).
+@pytest.mark.parametrize("prefetch,parallel", [(0, False), (2, False), (1, True)])
+def test_loop_gives_the_reference_table(sunset, reference, prefetch, parallel):
+    # With or without the read-ahead thread, with the limbs measured here or in a worker
+    # process: the same computations on the same pixels in the same order, so the same
+    # numbers (1e-9 allows for nothing but rounding).
     fs = open_frames(sunset)
     rows, colour, strip = reference
     assert sum(bool(limbs) and limbs["g"].visible for _, limbs, _ in rows) >= 10
     assert any(not limbs or not limbs["g"].visible for _, limbs, _ in rows)  # after sunset
-    res = pl._measure_frames(fs, lambda: None, colour_stride=1, prefetch=prefetch)
+    res = pl._measure_frames(fs, lambda: None, colour_stride=1, prefetch=prefetch,
+                             parallel=parallel)
     table = res.cols.table()
     assert len(table) == len(rows) == len(fs.infos)
     for i, (line, limbs, flags) in enumerate(rows):

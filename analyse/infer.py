@@ -143,7 +143,8 @@ def regime(gamma: float) -> str:
     if gamma < 0.0:
         return "inversion (temperature rising with height)"
     if gamma <= DRY_ADIABATIC_K_PER_KM:
-        return "stable, near the standard atmosphere"
+        return ("stable, cooling with height less steeply than the dry adiabat "
+                "(the standard atmosphere's 6.5 K/km is in this range)")
     if gamma < MIRAGE_K_PER_KM:
         return "superadiabatic (sea warmer than the air)"
     return "strongly superadiabatic: ray curvature reversed, inferior mirage likely"

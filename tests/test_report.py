@@ -200,7 +200,7 @@ def test_constrained_fit_page(constrained):
     assert err > 0.0  # a small error keeps a significant digit instead of reading "± 0.0"
     # (g - 6.5)^2 / 4: chi-square rises by 1 at 6.5 +- 2 and by 4 at 6.5 +- 4.
     assert "6.5 ± 2.0 K/km (1 sigma; 2-sigma range 2.5 to 10.5 K/km)" in words
-    assert "stable, near the standard atmosphere" in words
+    assert "stable, cooling with height less steeply than the dry adiabat" in words
     assert "the model shows no mirage" in words
     assert "trusted to ± 0.30 s" in words and "carries most of the weight" in words
     assert "Eye safety" in words and "live view" in words

@@ -13,7 +13,6 @@ import pytest
 
 from analyse.disc import blur_fraction_above
 from analyse.measure import (
-    chord_depth,
     disc_flux_from_chords,
     last_light,
     segment_depth,
@@ -32,16 +31,6 @@ FPS = 8.0  # the end-to-end recordings' rate through the green segment
 STEP_S = 1.0 / FPS
 
 
-def test_segment_fraction_of_a_uniform_disc_is_the_circular_segment_area():
-    # E. W. Weisstein, "Circular Segment", MathWorld: area R^2 (theta - sin theta) / 2 with
-    # theta = 2 arccos(1 - h / R); over the disc's area pi R^2. Closed forms on both sides:
-    # agreement to rounding (1e-12).
-    h = np.array([1e-4, 1e-3, 0.02, 0.3, 1.0, 1.7, 2.0])
-    theta = 2.0 * np.arccos(1.0 - h)
-    area = (theta - np.sin(theta)) / 2.0 / np.pi
-    assert np.allclose(segment_fraction(h, 0.0), area, rtol=1e-12, atol=1e-15)
-
-
 def test_thin_segment_law_and_its_limb_darkening_term():
     # Thin segment: (1 - u) (4 sqrt 2 / 3) eta^1.5 / (pi (1 - u/3)) plus the u pi/2 eta^2
     # term of the chord brightness integrated (analyse.disc); relative O(eta) beyond.
@@ -55,14 +44,6 @@ def test_segment_depth_inverts_segment_fraction(u):
     eta = np.geomspace(1e-6, 1.9, 50)
     assert np.allclose(segment_depth(segment_fraction(eta, u), u), eta, rtol=1e-5)
     assert segment_depth(0.0, u) == 0.0
-
-
-def test_chord_depth_is_the_sagitta():
-    # E. W. Weisstein, "Sagitta", MathWorld: s = R - sqrt(R^2 - a^2 / 4) for a chord a.
-    r, s = 230.0, np.array([0.5, 4.0, 60.0, 230.0])
-    a = 2.0 * np.sqrt(2.0 * r * s - s**2)
-    assert np.allclose(chord_depth(a, r) * r, s, rtol=1e-9)
-    assert np.isnan(chord_depth(2.0 * r + 1.0, r))
 
 
 def _segment_curve(t, t0, rate_sd_per_s, u, squeeze=0.8):

@@ -32,7 +32,7 @@ from analyse.disc import (
     limb_darkening_u,
     total_flux,
 )
-from analyse.limb import NOMINAL_WAVELENGTH_NM
+from analyse._limbmodel import NOMINAL_WAVELENGTH_NM
 from analyse.predict import DETECTION_FRACTION
 
 __all__ = [

@@ -14,10 +14,8 @@ import gc
 import shutil
 import threading
 import tracemalloc
-from fractions import Fraction
 from pathlib import Path
 
-import av
 import cv2
 import numpy as np
 import pytest
@@ -27,7 +25,7 @@ from analyse import pipeline as pl
 from analyse.errors import InputError
 from analyse.frames import iter_frames, open_frames
 from analyse.measure import CHANNELS
-from analyse.writers import run_simulate
+from analyse.writers import VideoWriter, run_simulate
 
 # A short simulated sunset, small frames: the disc (about 236 px wide at 8 arcsec/px)
 # sinks from well above the horizon through a thin segment to below it, with glitter,
@@ -209,20 +207,12 @@ def test_memory_flat_in_the_recording_length(sunset, tmp_path):
 
 
 def _clip(path: Path, n: int) -> Path:
-    container = av.open(str(path), "w")
-    stream = container.add_stream("libx264", rate=30)
-    stream.height, stream.width, stream.pix_fmt = 48, 64, "yuv420p"
-    stream.time_base = stream.codec_context.time_base = Fraction(1, 90000)
+    """A small H.264 clip of noise frames, 1/30 s apart, written by the project's writer."""
+    writer = VideoWriter(path, 64, 48, start_unix_s=0.0)
     rng = np.random.default_rng(1)
     for i in range(n):
-        rgb = rng.integers(0, 256, (48, 64, 3), dtype=np.uint8)
-        frame = av.VideoFrame.from_ndarray(rgb, format="rgb24").reformat(format="yuv420p")
-        frame.pts, frame.time_base = 3000 * i, Fraction(1, 90000)
-        for packet in stream.encode(frame):
-            container.mux(packet)
-    for packet in stream.encode():
-        container.mux(packet)
-    container.close()
+        writer.add_at(rng.integers(0, 256, (48, 64, 3), dtype=np.uint8), 3000 * i)
+    writer.close()
     return path
 
 

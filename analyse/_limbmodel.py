@@ -31,6 +31,7 @@ __all__ = ["NOMINAL_WAVELENGTH_NM", "PROFILE_BIN_PX", "HIDDEN_SIGMAS"]
 NOMINAL_WAVELENGTH_NM = {"r": 600.0, "g": 530.0, "b": 460.0}  # DESIGN.md default bands
 PROFILE_BIN_PX = 0.1  # bin of the apex fit's pixels in their height at the apex column [px]
 HIDDEN_SIGMAS = 8.0  # below this many blurs the horizon's cut enters the model [-]
+_TABLE_STEP = 0.05  # grid of the ramp tables in z and w [blurs]
 
 
 
@@ -42,18 +43,33 @@ def _ramp_tables() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     height above the horizon, both in units of the blur ``sigma``. Returns the grids of
     ``z`` and ``w`` and the (2, Z, W) table.
     """
-    z = np.arange(-10.0, 30.0 + 1e-9, 0.05)
-    w = np.arange(0.0, 10.0 + 1e-9, 0.05)
-    v = np.arange(0.0, 45.0 + 1e-9, 0.02)
+    z = np.arange(-10.0, 30.0 + 1e-9, _TABLE_STEP)
+    w = np.arange(0.0, 10.0 + 1e-9, _TABLE_STEP)
+    dv = 0.02
+    v = np.arange(0.0, 45.0 + 1e-9, dv)
     gauss = np.exp(-0.5 * (v[None, :] - z[:, None]) ** 2) / math.sqrt(2.0 * math.pi)
-    upper = np.round(np.clip(z[:, None] + w[None, :], 0.0, v[-1]) / 0.02).astype(int)
+    # The upper limit between the grid's nodes: the running integral interpolated there
+    # (rounding it to a node would make the table's slopes jump by up to 40 % between
+    # neighbouring cells, and the fits' finite-difference Jacobians with them).
+    pos = np.clip(z[:, None] + w[None, :], 0.0, v[-1]) / dv
+    below = np.minimum(pos.astype(int), v.size - 2)
+    frac = pos - below
     tables = []
     for k in (0.5, 1.5):
         f = v[None, :] ** k * gauss
         cum = np.concatenate([np.zeros((z.size, 1)),
-                              np.cumsum(0.5 * (f[:, 1:] + f[:, :-1]) * 0.02, axis=1)], axis=1)
-        tables.append(np.take_along_axis(cum, upper, axis=1))
+                              np.cumsum(0.5 * (f[:, 1:] + f[:, :-1]) * dv, axis=1)], axis=1)
+        tables.append(np.take_along_axis(cum, below, axis=1) * (1.0 - frac)
+                      + np.take_along_axis(cum, below + 1, axis=1) * frac)
     return z, w, np.stack(tables)
+
+
+@functools.lru_cache(maxsize=1)
+def _ramp_pairs() -> np.ndarray:
+    """The table of :func:`_ramp_tables` as (Z * W, 2): both integrals of a node side by
+    side, so one gather fetches them together."""
+    _, _, tables = _ramp_tables()
+    return np.ascontiguousarray(np.moveaxis(tables, 0, -1)).reshape(-1, 2)
 
 
 def _limb_basis(h: np.ndarray, top: np.ndarray, sigma: float, radius: float
@@ -64,28 +80,23 @@ def _limb_basis(h: np.ndarray, top: np.ndarray, sigma: float, radius: float
     Returns the two model columns at heights ``h`` [px]: the step ``Phi(z) - Phi(-w)``
     (zero where the top is below the line) and the blurred ``mu / sqrt(2 / R)`` with
     ``mu = sqrt(2 t / R - t^2 / R^2) ~ sqrt(t) (1 - t / (4 R))`` at depth ``t``:
-    ``sqrt(sigma) J_1/2 - sigma^1.5 J_3/2 / (4 R)``.
+    ``sqrt(sigma) J_1/2 - sigma^1.5 J_3/2 / (4 R)``. The tables are interpolated
+    bilinearly; far above the line (``w`` beyond the table) their last column holds.
     """
-    zg, wg, tables = _ramp_tables()
+    zg, wg, _ = _ramp_tables()
+    pairs = _ramp_pairs()
     z, w = np.broadcast_arrays((top - h) / sigma, np.maximum(h, 0.0) / sigma)
-    top = np.broadcast_to(top, z.shape)
     step = np.where(top > 0, ndtr(z) - ndtr(-w), 0.0).clip(0.0, None)
-    j = np.empty((2,) + z.shape)
-    far = w >= wg[-1]  # far above the line: the table's last column, in z only
-    for k in (0, 1):
-        j[k][far] = np.interp(z[far], zg, tables[k, :, -1])
-    if not far.all():
-        near = ~far
-        fz = (np.clip(z[near], zg[0], zg[-1] - 1e-9) - zg[0]) / 0.05
-        fw = np.clip(w[near], 0.0, wg[-1] - 1e-9) / 0.05
-        iz, iw = fz.astype(int), fw.astype(int)
-        fz, fw = fz - iz, fw - iw
-        flat = iz * wg.size + iw
-        t = tables.reshape(2, -1)
-        j[:, near] = (t[:, flat] * ((1 - fz) * (1 - fw)) + t[:, flat + 1] * ((1 - fz) * fw)
-                      + t[:, flat + wg.size] * (fz * (1 - fw))
-                      + t[:, flat + wg.size + 1] * (fz * fw))
-    return step, np.sqrt(sigma) * j[0] - np.power(sigma, 1.5) * j[1] / (4.0 * radius)
+    fz = (np.clip(z, zg[0], zg[-1] - 1e-9) - zg[0]) * (1.0 / _TABLE_STEP)
+    fw = np.minimum(w, wg[-1] - 1e-9) * (1.0 / _TABLE_STEP)
+    iz, iw = fz.astype(np.intp), fw.astype(np.intp)
+    fz -= iz
+    fw -= iw
+    flat = iz * wg.size + iw
+    lower = pairs[flat] + (pairs[flat + 1] - pairs[flat]) * fw[..., None]
+    upper = pairs[flat + wg.size] + (pairs[flat + wg.size + 1] - pairs[flat + wg.size]) * fw[..., None]
+    j = lower + (upper - lower) * fz[..., None]
+    return step, np.sqrt(sigma) * j[..., 0] - np.power(sigma, 1.5) * j[..., 1] / (4.0 * radius)
 
 
 @dataclass(frozen=True)
@@ -97,7 +108,8 @@ class _ApexFit:
     coef: tuple[float, float, float] = (0.0, 0.0, 0.0)  # a, b and the sky offset [linear]
 
 
-def _levenberg_marquardt(fun, p0, lo, hi, max_iter: int = 20, tol: float = 2e-3):
+def _levenberg_marquardt(fun, p0, lo, hi, max_iter: int = 20, tol: float = 2e-3,
+                         give_up_at_bound: bool = False):
     """Minimise ``|fun(p)|^2`` within bounds (forward-difference Jacobian).
 
     ``fun`` takes a stack of parameter vectors (K, P) and returns their residuals (K, M):
@@ -107,7 +119,9 @@ def _levenberg_marquardt(fun, p0, lo, hi, max_iter: int = 20, tol: float = 2e-3)
     iteration (an active set); the others take the damped Gauss-Newton step, clipped to
     the bounds. Stops when a step taken changes no parameter by more than ``tol``, or
     when no damping finds a lower cost. ``converged`` is False at ``max_iter`` and when
-    a bound holds a parameter at the end.
+    a bound holds a parameter at the end. ``give_up_at_bound``: return (not converged)
+    as soon as a bound holds a parameter, for fits whose bounds mark a failure (a blur
+    sharper than the optics allow) rather than a constraint to fit within.
 
     Returns (p, jacobian, residuals, converged). K. Levenberg, Q. Appl. Math. 2, 164
     (1944); D. W. Marquardt, J. SIAM 11, 431 (1963).
@@ -119,7 +133,7 @@ def _levenberg_marquardt(fun, p0, lo, hi, max_iter: int = 20, tol: float = 2e-3)
         jac = ((fun(p + eps * np.eye(p.size)) - r) / eps).T  # one batched call
         a, g = jac.T @ jac, jac.T @ r
         free = ~(((p <= lo) & (g > 0)) | ((p >= hi) & (g < 0)))
-        if not free.any():
+        if not free.any() or (give_up_at_bound and not free.all()):
             return p, jac, r, False
         af, gf = a[np.ix_(free, free)], g[free]
         while lam < 1e8:
@@ -159,7 +173,7 @@ def _projected(a: np.ndarray, y: np.ndarray) -> np.ndarray:
 
 
 def _fit_apex(values, h, drop, top0, sigma0, kappa, radius, ratio, prior_weight, free,
-              sigma_start: float | None = None) -> _ApexFit:
+              sigma_start: float | None = None, sigma_floor: float = 0.3) -> _ApexFit:
     """Least-squares apex height ``T`` of the limb model (variable projection [1]).
 
     ``values`` are excess pixels at heights ``h`` whose column's top lies ``drop`` below
@@ -167,7 +181,8 @@ def _fit_apex(values, h, drop, top0, sigma0, kappa, radius, ratio, prior_weight,
     ``b`` pulled toward ``ratio * a`` with weight ``prior_weight`` per sqrt(pixel) (a row
     appended to the linear problem). Otherwise ``sigma = sigma0`` and ``b = ratio * a``.
     ``sigma_start``: where the free fit starts in ``sigma`` (default ``sigma0``), e.g. the
-    previous frame's: fewer iterations, the same minimum.
+    previous frame's: fewer iterations, the same minimum. ``sigma_floor``: the least blur
+    believed [px]; a fit that reaches it gives up (``ok`` False).
 
     The model of a pixel depends on ``u = h + drop`` (its height as if in the apex column)
     and, near the horizon only, on ``h``: the pixels are fitted as the means of narrow
@@ -192,11 +207,12 @@ def _fit_apex(values, h, drop, top0, sigma0, kappa, radius, ratio, prior_weight,
         a = np.stack([step + ratio * ramp, ones], axis=2) * wt[:, None]
         return _projected(a, target[:-1])
 
-    start = sigma_start if sigma_start is not None and 0.35 < sigma_start < 5.0 else sigma0
-    p0 = [top0, math.log(start)] if free else [top0]
-    lo = np.array([top0 - 6.0, math.log(0.3)][: len(p0)])
+    floor = max(sigma_floor, 0.3)
+    start = sigma_start if sigma_start is not None and floor < sigma_start < 5.0 else sigma0
+    p0 = [top0, math.log(max(start, 1.05 * floor))] if free else [top0]
+    lo = np.array([top0 - 6.0, math.log(floor)][: len(p0)])
     hi = np.array([top0 + 6.0, math.log(6.0)][: len(p0)])
-    p, jac, r, conv = _levenberg_marquardt(resid, p0, lo, hi)
+    p, jac, r, conv = _levenberg_marquardt(resid, p0, lo, hi, give_up_at_bound=True)
     r, jac = r[: bins.count.size], jac[: bins.count.size]
     dof = max(values.size - len(p0) - (3 if free else 2), 1)
     try:

@@ -5,6 +5,13 @@ timestamps (pts) without decoding pixels: packets arrive in decoding order, so t
 pts are sorted into presentation order. ``pts * time_base`` is exact, keeps a
 non-zero start and follows a variable frame rate. Only the first frame is decoded
 while probing, for its display-matrix rotation.
+
+Colour matrix: a YUV stream's pixels become R'G'B' through the matrix its header names
+(ITU-T H.273 ``matrix_coefficients``). FFmpeg's converter falls back to BT.601 when the
+header names none, which mixes the channels of HD footage encoded with BT.709 (a red of
+200 decodes as 187 and its green drops by 12 codes): an untagged stream is decoded with
+BT.709 from 720 rows up and BT.601 below, as players do (common practice, no source), and
+the matrix used is recorded (:attr:`VideoProbe.colour_matrix`).
 """
 
 from __future__ import annotations
@@ -23,6 +30,12 @@ __all__ = ["VideoProbe", "probe_video", "decode_video", "chroma_subsampling"]
 
 #: Chroma subsampling named from (horizontal, vertical) luma/chroma size ratios.
 SUBSAMPLING_NAMES = {(1, 1): "4:4:4", (2, 1): "4:2:2", (2, 2): "4:2:0", (4, 1): "4:1:1"}
+#: ITU-T H.273 matrix_coefficients -> (name, PyAV/swscale colorspace). 5 (BT.470BG) and 6
+#: (SMPTE 170M) are BT.601's two variants; 10 (BT.2020 constant luminance) is decoded as 9.
+MATRICES = {1: ("BT.709", "ITU709"), 4: ("FCC", "FCC"), 5: ("BT.601", "ITU601"),
+            6: ("BT.601", "ITU601"), 7: ("SMPTE 240M", "SMPTE240M"), 9: ("BT.2020", "BT2020"),
+            10: ("BT.2020", "BT2020")}
+HD_ROWS = 720  # untagged streams this tall are taken as BT.709 (common practice, no source)
 #: Demuxer flag: generate missing pts (AVI and raw streams may lack them) (FFmpeg docs).
 OPEN_OPTIONS = {"fflags": "+genpts"}
 
@@ -44,6 +57,8 @@ class VideoProbe:
     chroma_subsampling: str | None
     rotation_deg: int
     creation_time: str | None
+    colour_matrix: str | None = None  # YUV -> R'G'B' matrix decoded with (None for RGB)
+    matrix_tagged: bool = False  # the stream's header names it (else assumed by size)
 
 
 def probe_video(path: Path, max_pixels: int) -> VideoProbe:
@@ -79,6 +94,7 @@ def probe_video(path: Path, max_pixels: int) -> VideoProbe:
         if len([c for c in fmt.components if not c.is_alpha]) < 3:
             raise InputError(f"pixel format {pix_fmt!r} is greyscale; the analysis needs "
                              "colour", path)
+        matrix, tagged = colour_matrix(ctx.colorspace, fmt, height)
         frame_pts, rotation = _scan(container, stream, path)
         if stream.time_base is None:
             raise InputError("the video stream has no time base", path)
@@ -93,8 +109,20 @@ def probe_video(path: Path, max_pixels: int) -> VideoProbe:
         path=path, frame_pts=frame_pts, time_base=Fraction(stream.time_base),
         width=width, height=height, bit_depth=8 if bits <= 8 else 16, pix_fmt=pix_fmt,
         chroma_subsampling=chroma_subsampling(fmt), rotation_deg=rotation,
-        creation_time=creation,
+        creation_time=creation, colour_matrix=matrix, matrix_tagged=tagged,
     )
+
+
+def colour_matrix(code: int | None, fmt: av.VideoFormat, height: int
+                  ) -> tuple[str | None, bool]:
+    """The YUV matrix to decode with (module docstring) and whether the header named it.
+
+    ``code``: the stream's H.273 ``matrix_coefficients``; ``height``: coded rows."""
+    if fmt.is_rgb:
+        return None, False
+    if code in MATRICES:
+        return MATRICES[code][0], True
+    return ("BT.709" if height >= HD_ROWS else "BT.601"), False
 
 
 def chroma_subsampling(fmt: av.VideoFormat) -> str | None:
@@ -132,6 +160,8 @@ def decode_video(probe: VideoProbe, roi: tuple[int, int, int, int] | None
     """
     position_of = {pts: k for k, pts in enumerate(probe.frame_pts)}
     out_format = "rgb24" if probe.bit_depth == 8 else "rgb48le"
+    space = {name: sws for name, sws in MATRICES.values()}.get(probe.colour_matrix)
+    convert = {"src_colorspace": space, "dst_colorspace": space} if space else {}
     k_rot = (probe.rotation_deg // 90) % 4
     next_k = 0
     problem = "frame missing from the decoder's output"
@@ -151,7 +181,7 @@ def decode_video(probe: VideoProbe, roi: tuple[int, int, int, int] | None
             if frame.is_corrupt:
                 yield k, None, "frame decoded with errors (corrupt data)"
                 continue
-            rgb = np.rot90(frame.to_ndarray(format=out_format), k_rot)
+            rgb = np.rot90(frame.to_ndarray(format=out_format, **convert), k_rot)
             if roi is not None:
                 rgb = rgb[roi[0]:roi[1], roi[2]:roi[3]]
             yield k, rgb, None

@@ -95,6 +95,9 @@ class FrameSet:
     frame_pts: tuple[int, ...] = ()  # video: pts of infos[i], in time_base units
     time_base: Fraction | None = None  # video: seconds per pts unit
     rotation_deg: int = 0  # video: counter-clockwise display rotation applied on reading
+    # YUV -> R'G'B' matrix of the stored colour ("BT.709", "BT.601", ...; JPEG: "BT.601"
+    # per JFIF 1.02), None for RGB storage
+    colour_matrix: str | None = None
 
 
 def srgb_to_linear(x: np.ndarray | float) -> np.ndarray:
@@ -345,7 +348,8 @@ def _open_stills(folder: Path, stills: list[Path], csv_times: dict[str, float] |
     return FrameSet(folder=folder, kind="stills", files=tuple(stills), infos=infos,
                     time_source=time_source, width=first.width, height=first.height,
                     bit_depth=first.bit_depth, chroma_subsampling=first.chroma_subsampling,
-                    notes=tuple(notes))
+                    notes=tuple(notes),
+                    colour_matrix="BT.601" if first.chroma_subsampling else None)
 
 
 def _open_video(folder: Path, video: Path, csv_times: dict[str, float] | None,
@@ -367,6 +371,9 @@ def _open_video(folder: Path, video: Path, csv_times: dict[str, float] | None,
     if probe.chroma_subsampling in ("4:2:0", "4:2:2", "4:1:1"):
         notes.append(f"video is {probe.chroma_subsampling} ({probe.pix_fmt}): colour is stored "
                      "at reduced resolution, so colour edges are interpolated")
+    if probe.colour_matrix and not probe.matrix_tagged:
+        notes.append(f"the video does not name its colour matrix: decoded as "
+                     f"{probe.colour_matrix} ({probe.height} rows)")
     if probe.rotation_deg:
         notes.append(f"display rotation {probe.rotation_deg} deg (counter-clockwise) applied "
                      "on reading")
@@ -378,7 +385,8 @@ def _open_video(folder: Path, video: Path, csv_times: dict[str, float] | None,
                     time_source=time_source, width=probe.width, height=probe.height,
                     bit_depth=probe.bit_depth, chroma_subsampling=probe.chroma_subsampling,
                     notes=tuple(notes), frame_pts=probe.frame_pts,
-                    time_base=probe.time_base, rotation_deg=probe.rotation_deg)
+                    time_base=probe.time_base, rotation_deg=probe.rotation_deg,
+                    colour_matrix=probe.colour_matrix)
 
 
 def _video_anchor(probe: _video.VideoProbe, video_start_utc: float | str | datetime | None,
@@ -543,4 +551,4 @@ def _probe_of(frameset: FrameSet) -> _video.VideoProbe:
         time_base=frameset.time_base or Fraction(1), width=frameset.width,
         height=frameset.height, bit_depth=frameset.bit_depth, pix_fmt="",
         chroma_subsampling=frameset.chroma_subsampling, rotation_deg=frameset.rotation_deg,
-        creation_time=None)
+        creation_time=None, colour_matrix=frameset.colour_matrix)

@@ -663,7 +663,8 @@ def _horizon_sigma(sky: _Sky, start: float | None = None) -> float:
 
     lo, hi = np.array([-2.0, math.log(0.3)]), np.array([2.0, math.log(4.0)])
     s0 = math.log(math.sqrt(start**2 + SKY_BIN_PX**2 / 12.0)) if start and start > 0.4 else 0.0
-    p, _, r, conv = _levenberg_marquardt(resid, [0.0, min(max(s0, lo[1]), hi[1])], lo, hi)
+    p, _, r, conv = _levenberg_marquardt(resid, [0.0, min(max(s0, lo[1]), hi[1])], lo, hi,
+                                         give_up_at_bound=True)
     rms = math.sqrt(float(r @ r) / max(r.size - 5, 1))
     if not conv or rms > 0.2 * abs(float(np.ptp(lv))):
         return DEFAULT_SIGMA_PX
@@ -734,7 +735,7 @@ def _thick(ch: _Channel, fr: _Frame, box, hint=None, memo=None) -> _Shape | None
     top0 = apex0 + 0.2 if ch.top_start is None else ch.top_start
     fit = _fit_apex(ch.excess[group], fr.h[group], drop[group], top0, ch.sigma_h,
                     ch.sky.kappa, rc, _ramp_ratio(ch.name, rc), ch.prior_weight, not saturated,
-                    ch.sigma_start)
+                    ch.sigma_start, MIN_LIMB_SIGMA_FRACTION * ch.sigma_h)
     if not fit.ok or fit.sigma_px < MIN_LIMB_SIGMA_FRACTION * ch.sigma_h:
         return None  # no fit, or a limb sharper than the optics: a thin segment's contour
     top = fit.top_px

@@ -598,3 +598,56 @@ def test_video_frame_corrupt_mid_stream(tmp_path):
     assert not got[0][1] and 0 < sum(bad for _, bad in got) < 20
     with pytest.raises(ValueError, match="on_error"):
         next(iter_frames(fs, on_error="ignore"))
+
+
+# --- colour matrix -----------------------------------------------------------------------
+
+
+def _matrix_clip(folder: Path, rows: int, encode_space: str, tag: int | None) -> Path:
+    """One-frame H.264 clip of a deep red (200, 60, 20), converted to YUV with
+    ``encode_space`` and its header's matrix_coefficients set to ``tag`` (None: untagged)."""
+    folder.mkdir()
+    container = av.open(str(folder / "clip.mp4"), "w")
+    stream = container.add_stream("libx264", rate=30)
+    stream.height, stream.width = rows, 16 * rows // 9
+    stream.pix_fmt = "yuv420p"
+    if tag is not None:
+        stream.codec_context.colorspace = tag
+    rgb = np.zeros((rows, 16 * rows // 9, 3), np.uint8)
+    rgb[:] = (200, 60, 20)
+    frame = av.VideoFrame.from_ndarray(rgb, format="rgb24").reformat(
+        format="yuv420p", src_colorspace=encode_space, dst_colorspace=encode_space)
+    frame.pts = 0
+    for packet in list(stream.encode(frame)) + list(stream.encode()):
+        container.mux(packet)
+    container.close()
+    return folder
+
+
+@pytest.mark.parametrize("rows, space, tag, name, tagged", [
+    (720, "ITU709", None, "BT.709", False),  # untagged HD: BT.709 (HD_ROWS)
+    (360, "ITU601", None, "BT.601", False),  # untagged SD: BT.601
+    (720, "ITU601", 6, "BT.601", True),  # the header's SMPTE 170M wins over the size
+    (360, "ITU709", 1, "BT.709", True),
+])
+def test_video_decoded_with_its_colour_matrix(tmp_path, rows, space, tag, name, tagged):
+    # The matrices are those of ITU-R BT.709-6 (item 3.2) and BT.601-7 (section 2.5.1);
+    # H.273 (2016) table 4 numbers them 1 and 5/6. Decoded with the encoder's matrix, the
+    # colour comes back within the 8-bit and 4:2:0 rounding (2 codes); with the other one
+    # the red would be 12 codes off (measured with FFmpeg's converter).
+    fs = open_frames(_matrix_clip(tmp_path / "v", rows, space, tag), video_start_utc=T0)
+    assert fs.colour_matrix == name
+    assert any("does not name its colour matrix" in n for n in fs.notes) == (not tagged)
+    _, img = next(iter(iter_frames(fs)))
+    codes = linear_to_srgb(img[rows // 2, rows // 2].astype(float)) * 255
+    assert np.allclose(codes, [200, 60, 20], atol=2.5)
+
+
+def test_stills_colour_matrix(tmp_path):
+    # JPEG's YCbCr is BT.601's (JFIF 1.02, Hamilton 1992); PNG stores RGB.
+    for sub, name in (("j", "f1.jpg"), ("p", "f1.png")):
+        (tmp_path / sub).mkdir()
+        Image.fromarray(_flat(100)).save(tmp_path / sub / name)
+        _csv(tmp_path / sub, [(name, _iso(T0))])
+    assert open_frames(tmp_path / "j").colour_matrix == "BT.601"
+    assert open_frames(tmp_path / "p").colour_matrix is None

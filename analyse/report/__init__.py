@@ -532,6 +532,7 @@ def _recording_rows(m) -> list[tuple[str, str]]:
                      f"{tab.sources[-1]} at {_clock(tab.t_unix_s[-1])}"))
     rows += [("Time source", fs.time_source),
              ("Chroma subsampling", fs.chroma_subsampling or "none (full colour resolution)"),
+             ("Colour matrix", fs.colour_matrix or "none (stored as RGB)"),
              ("Exposure", _exposure(fs))]
     alt = np.asarray(m.sun_altitude_deg, float)
     if alt.size and np.any(np.isfinite(alt)):

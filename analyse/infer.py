@@ -143,8 +143,8 @@ def regime(gamma: float) -> str:
     if gamma < 0.0:
         return "inversion (temperature rising with height)"
     if gamma <= DRY_ADIABATIC_K_PER_KM:
-        return ("stable, cooling with height less steeply than the dry adiabat "
-                "(the standard atmosphere's 6.5 K/km is in this range)")
+        return ("stable, cooling with height less steeply than the dry adiabat's "
+                f"{DRY_ADIABATIC_K_PER_KM:g} K/km")
     if gamma < MIRAGE_K_PER_KM:
         return "superadiabatic (sea warmer than the air)"
     return "strongly superadiabatic: ray curvature reversed, inferior mirage likely"
@@ -350,7 +350,7 @@ class _Emulator:
         todo = [float(g) for g in gammas if float(g) not in self.preds]
         if not todo:
             return
-        with tqdm(total=len(todo), disable=not progress, desc="fitting lapse rate",
+        with tqdm(total=len(todo), disable=not progress or None, desc="fitting lapse rate",
                   unit="atmosphere", leave=False) as bar:
             self.preds.update(self.make(todo))  # traced together: one integration
             bar.update(len(todo))

@@ -257,7 +257,7 @@ def _strip_crop(img, line, limbs, info) -> StripFrame | None:
 def _progress(total: int, enabled: bool, desc: str):
     from tqdm import tqdm
 
-    return tqdm(total=total, disable=not enabled, desc=desc, unit="frame", leave=False)
+    return tqdm(total=total, disable=not enabled or None, desc=desc, unit="frame", leave=False)
 
 
 def measure_folder(folder: Path, obs: Observation, *, progress: bool = True) -> Measurement:

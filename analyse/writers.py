@@ -286,7 +286,7 @@ def run_simulate(scenario_path: str | Path, out_folder: str | Path, *, force: bo
     check_output(out, force=force)
     sim = prepare_simulation(scenario)
     fmt = scenario.output.format
-    frames = tqdm(iter_frames(sim), total=sim.frame_times_unix_s.size, disable=quiet,
+    frames = tqdm(iter_frames(sim), total=sim.frame_times_unix_s.size, disable=quiet or None,
                   unit="frame", desc="simulate")
     with outfolder.atomic_folder(out, force=force) as stage:
         if fmt == "h264":

@@ -167,7 +167,7 @@ def _measure_frames(fs: FrameSet, *, progress: bool) -> list[FrameMeasure]:
     fs_used, wanted = _selected(fs)
     out: list[FrameMeasure] = []
     prior = None
-    with tqdm(total=len(wanted), disable=not progress, desc="calibrating", unit="frame",
+    with tqdm(total=len(wanted), disable=not progress or None, desc="calibrating", unit="frame",
               leave=False) as bar:
         for info, img in iter_frames(fs_used, on_error="skip"):
             if info.index not in wanted:

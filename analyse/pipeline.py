@@ -313,8 +313,9 @@ def _colour_stride(n_frames: int) -> int:
 
 def _chroma_luma(fs: FrameSet) -> tuple[float, float, float] | None:
     """Luma weights of a 4:2:0 video for :func:`analyse.limb.measure_limbs`, whose
-    colour leak between channels they predict (BT.709: HD video's matrix and that of
-    ``limbtrace simulate``).
+    colour leak between channels they predict: those of the matrix the video was
+    decoded with (``FrameSet.colour_matrix``; BT.709 for HD video and for ``limbtrace
+    simulate``, BT.601 for SD); other matrices are not corrected.
 
     Not for JPEG stills: there the horizon's own codec bias (+0.27 px on the simulated
     q85 recording, analyse/horizon.py "Limits") is partly offset by the uncorrected leak,
@@ -322,7 +323,7 @@ def _chroma_luma(fs: FrameSet) -> tuple[float, float, float] | None:
     """
     if fs.kind != "video" or fs.chroma_subsampling != "4:2:0":
         return None
-    return lb.LUMA_BT709
+    return {"BT.709": lb.LUMA_BT709, "BT.601": lb.LUMA_BT601}.get(fs.colour_matrix or "")
 
 
 def _measure_frames(fs: FrameSet, tick: Callable[[], object], *,

@@ -249,3 +249,21 @@ def test_prefetch_stops_early_and_raises_in_order(tmp_path):
     assert got == ["f0.png", "f1.png"]
     with pytest.raises(ValueError, match="prefetch"):
         next(iter_frames(fs, prefetch=-1))
+
+
+def test_chroma_leak_weights_follow_the_decoding_matrix():
+    # The 4:2:0 leak is predicted with the luma weights of the matrix the video was
+    # decoded with: ITU-R BT.709-6 item 3.2 (0.2126, 0.7152, 0.0722) and BT.601-7
+    # section 2.5.1 (0.299, 0.587, 0.114); JPEG stills and other matrices are left alone.
+    from types import SimpleNamespace
+
+    from analyse.pipeline import _chroma_luma
+
+    def fs(kind, sub, matrix):
+        return SimpleNamespace(kind=kind, chroma_subsampling=sub, colour_matrix=matrix)
+
+    assert _chroma_luma(fs("video", "4:2:0", "BT.709")) == pytest.approx((0.2126, 0.7152, 0.0722))
+    assert _chroma_luma(fs("video", "4:2:0", "BT.601")) == pytest.approx((0.299, 0.587, 0.114))
+    assert _chroma_luma(fs("video", "4:2:0", "BT.2020")) is None
+    assert _chroma_luma(fs("video", "4:4:4", "BT.709")) is None
+    assert _chroma_luma(fs("stills", "4:2:0", "BT.601")) is None

@@ -24,6 +24,7 @@ from pathlib import Path
 import av
 import numpy as np
 
+from analyse._transfer import transfer_name
 from analyse.errors import InputError
 
 __all__ = ["VideoProbe", "probe_video", "decode_video", "chroma_subsampling"]
@@ -59,6 +60,8 @@ class VideoProbe:
     creation_time: str | None
     colour_matrix: str | None = None  # YUV -> R'G'B' matrix decoded with (None for RGB)
     matrix_tagged: bool = False  # the stream's header names it (else assumed by size)
+    transfer: str = "sRGB"  # code values -> light (analyse._transfer)
+    transfer_tagged: bool = False  # the header names a supported one (else sRGB assumed)
 
 
 def probe_video(path: Path, max_pixels: int) -> VideoProbe:
@@ -95,6 +98,7 @@ def probe_video(path: Path, max_pixels: int) -> VideoProbe:
             raise InputError(f"pixel format {pix_fmt!r} is greyscale; the analysis needs "
                              "colour", path)
         matrix, tagged = colour_matrix(ctx.colorspace, fmt, height)
+        transfer, transfer_tagged = transfer_name(ctx.color_trc)
         frame_pts, rotation = _scan(container, stream, path)
         if stream.time_base is None:
             raise InputError("the video stream has no time base", path)
@@ -110,6 +114,7 @@ def probe_video(path: Path, max_pixels: int) -> VideoProbe:
         width=width, height=height, bit_depth=8 if bits <= 8 else 16, pix_fmt=pix_fmt,
         chroma_subsampling=chroma_subsampling(fmt), rotation_deg=rotation,
         creation_time=creation, colour_matrix=matrix, matrix_tagged=tagged,
+        transfer=transfer, transfer_tagged=transfer_tagged,
     )
 
 

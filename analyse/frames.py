@@ -36,7 +36,7 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from analyse import _stills, _video
+from analyse import _stills, _transfer, _video
 from analyse.errors import InputError
 
 __all__ = [
@@ -98,6 +98,9 @@ class FrameSet:
     # YUV -> R'G'B' matrix of the stored colour ("BT.709", "BT.601", ...; JPEG: "BT.601"
     # per JFIF 1.02), None for RGB storage
     colour_matrix: str | None = None
+    # Code values -> linear light (analyse._transfer): "sRGB" for stills and untagged
+    # video, else the video's own ("BT.709", "HLG", "PQ", "linear")
+    transfer: str = "sRGB"
 
 
 def srgb_to_linear(x: np.ndarray | float) -> np.ndarray:
@@ -273,7 +276,7 @@ def iter_frames(frameset: FrameSet, *, roi: tuple[int, int, int, int] | None = N
         yield from _prefetched(iter_frames(frameset, roi=roi, on_error=on_error), prefetch)
         return
     roi = _check_roi(roi, frameset.height, frameset.width)
-    lut = _linear_lut(frameset.bit_depth)
+    lut = _linear_lut(frameset.bit_depth, frameset.transfer)
     if frameset.kind == "video":
         infos = frameset.infos
         for k, rgb, problem in _video.decode_video(_probe_of(frameset), roi):
@@ -371,6 +374,12 @@ def _open_video(folder: Path, video: Path, csv_times: dict[str, float] | None,
     if probe.chroma_subsampling in ("4:2:0", "4:2:2", "4:1:1"):
         notes.append(f"video is {probe.chroma_subsampling} ({probe.pix_fmt}): colour is stored "
                      "at reduced resolution, so colour edges are interpolated")
+    if not probe.transfer_tagged:
+        notes.append("the video does not name a supported transfer function: its code "
+                     "values are decoded as sRGB")
+    elif probe.transfer != "sRGB":
+        notes.append(f"code values decoded to linear light with the {probe.transfer} "
+                     "transfer function the video names")
     if probe.colour_matrix and not probe.matrix_tagged:
         notes.append(f"the video does not name its colour matrix: decoded as "
                      f"{probe.colour_matrix} ({probe.height} rows)")
@@ -386,7 +395,7 @@ def _open_video(folder: Path, video: Path, csv_times: dict[str, float] | None,
                     bit_depth=probe.bit_depth, chroma_subsampling=probe.chroma_subsampling,
                     notes=tuple(notes), frame_pts=probe.frame_pts,
                     time_base=probe.time_base, rotation_deg=probe.rotation_deg,
-                    colour_matrix=probe.colour_matrix)
+                    colour_matrix=probe.colour_matrix, transfer=probe.transfer)
 
 
 def _video_anchor(probe: _video.VideoProbe, video_start_utc: float | str | datetime | None,
@@ -473,11 +482,11 @@ def _natural_key(name: str) -> list[object]:
             for part in _DIGITS.split(name) if part]
 
 
-def _linear_lut(bit_depth: int) -> np.ndarray:
-    """Lookup table: stored integer -> linear light, float32."""
+def _linear_lut(bit_depth: int, transfer: str = "sRGB") -> np.ndarray:
+    """Lookup table: stored integer -> linear light, float32 (:mod:`analyse._transfer`)."""
     levels = 2 ** bit_depth
     codes = np.arange(levels, dtype=np.float64) / (levels - 1)
-    return srgb_to_linear(codes).astype(np.float32)
+    return _transfer.to_linear(transfer, codes).astype(np.float32)
 
 
 def _linearise(lut: np.ndarray, codes: np.ndarray) -> np.ndarray:
@@ -551,4 +560,5 @@ def _probe_of(frameset: FrameSet) -> _video.VideoProbe:
         time_base=frameset.time_base or Fraction(1), width=frameset.width,
         height=frameset.height, bit_depth=frameset.bit_depth, pix_fmt="",
         chroma_subsampling=frameset.chroma_subsampling, rotation_deg=frameset.rotation_deg,
-        creation_time=None, colour_matrix=frameset.colour_matrix)
+        creation_time=None, colour_matrix=frameset.colour_matrix,
+        transfer=frameset.transfer)

@@ -62,7 +62,7 @@ from scipy.special import ndtr
 from analyse.frames import linear_to_srgb
 
 __all__ = ["HorizonLine", "find_horizon", "horizon_colour_offsets", "column_edges",
-           "robust_line", "encoding_bias"]
+           "robust_line", "encoding_bias", "chroma_offset_error", "clip_offset_error"]
 
 COLUMN_TARGET = 480  # column blocks across a frame (1920 px: blocks of 4 columns)
 EDGE_SMOOTH_PX = 1.5  # derivative-of-Gaussian scale [px] (common practice, no source)
@@ -75,6 +75,8 @@ PRIOR_BAND_PX = 12.0  # search band around the previous frame's line [px]
 COARSE_BAND_PX = 4.0  # search band around the first pass's line [px]
 COLOUR_BAND_PX = 6.0  # search band for the r/b edges around the green line [px]
 CENTROID_HALF_PX = 5  # half-window of the encoded-gradient centroid [px]
+# 4:2:0 chroma: one chroma sample per 2 rows (ITU-T T.81 / H.264 4:2:0 sampling) [px]
+CHROMA_ROW_SPACING_PX = 2.0
 RANSAC_TRIALS = 200  # random pairs tried
 RANSAC_INLIER_PX = 2.0  # pair-model inlier distance [px]
 RANSAC_EVAL_POINTS = 128  # points on which each pair's consensus is counted
@@ -423,9 +425,14 @@ def horizon_colour_offsets(image: np.ndarray, line: HorizonLine, *,
     -------
     dict
         ``{"r": dy, "b": dy}``: the channel's edge below the green one [px, y down
-        positive]; NaN when not measurable.
+        positive]; NaN when not measurable. Beside them, per channel ``c`` in r, g, b:
+        ``"step_c"``, the edge's sRGB-encoded step (above minus below, [0..1] scale;
+        for :func:`chroma_offset_error`), and ``"clip_c"``, a bound on the edge's shift
+        by samples clipped at 0 or 1 [px] (for :func:`clip_offset_error`); NaN when
+        not measured.
     """
     nan = {"r": float("nan"), "b": float("nan")}
+    nan |= {f"{k}_{c}": float("nan") for k in ("step", "clip") for c in _CHANNELS}
     image = np.asarray(image)
     if image.ndim != 3 or image.shape[2] != 3:
         raise ValueError(f"image must be (H, W, 3), got shape {image.shape}")
@@ -441,20 +448,24 @@ def horizon_colour_offsets(image: np.ndarray, line: HorizonLine, *,
     if exclude_x is not None:
         keep = (xs < min(exclude_x) - 0.5 * step) | (xs > max(exclude_x) + 0.5 * step)
     centre = line.row_at(xs) - r0
-    loc = {c: _encoded_edge(image[..., _CHANNELS[c]], step, r0, r1, lo, hi, keep, centre)
-           for c in ("r", "g", "b")}
-    out = {}
+    edges = {c: _encoded_edge(image[..., _CHANNELS[c]], step, r0, r1, lo, hi, keep, centre)
+             for c in ("r", "g", "b")}
+    out = dict(nan)
     for c in ("r", "b"):
-        d = loc[c] - loc["g"]
+        d = edges[c][0] - edges["g"][0]
         d = d[np.isfinite(d)]
         out[c] = _tukey_mean(d) if d.size >= MIN_COLUMNS else float("nan")
+    for c, (_, step_enc, clipped) in edges.items():
+        out[f"step_{c}"], out[f"clip_{c}"] = step_enc, clipped
     return out
 
 
 def _encoded_edge(plane: np.ndarray, step: int, r0: int, r1: int, lo: np.ndarray,
-                  hi: np.ndarray, keep: np.ndarray, centre: np.ndarray) -> np.ndarray:
+                  hi: np.ndarray, keep: np.ndarray,
+                  centre: np.ndarray) -> tuple[np.ndarray, float, float]:
     """Per-block edge row (strip coordinates) from the encoded gradient's centroid,
-    corrected by :func:`encoding_bias`; NaN where there is no clean edge.
+    corrected by :func:`encoding_bias`, NaN where there is no clean edge; the encoded
+    step (above minus below) and the fraction of the window's samples clipped at 0 or 1.
 
     The window is centred on ``centre`` (strip rows) moved by the channel's median
     peak offset from it, the same for every block: a window following each block's own
@@ -463,15 +474,16 @@ def _encoded_edge(plane: np.ndarray, step: int, r0: int, r1: int, lo: np.ndarray
     strip, _ = _blocks(plane, step, r0, r1)
     row, _, sig, _, _ = column_edges(strip, lo, hi)
     out = np.full(row.shape, np.nan)
+    none = (out, float("nan"), float("nan"))
     good = keep & np.isfinite(row)
     if good.sum() < MIN_COLUMNS:
-        return out
+        return none
     enc, _ = _blocks(linear_to_srgb(np.clip(plane[r0:r1], 0.0, None)), step, 0, r1 - r0)
     half = int(CENTROID_HALF_PX)
     k = np.round(centre + np.median(row[good] - centre[good])).astype(int)
     cols = np.flatnonzero(keep & (k - half - 1 >= 0) & (k + half + 1 < strip.shape[0]))
     if cols.size < MIN_COLUMNS:
-        return out
+        return none
     k = k[cols]
     offs = np.arange(-half, half)[:, None]
     grad = enc[k + offs + 1, cols] - enc[k + offs, cols]
@@ -481,7 +493,37 @@ def _encoded_edge(plane: np.ndarray, step: int, r0: int, r1: int, lo: np.ndarray
     out[cols[ok]] = np.sum((k + offs + 0.5) * grad, axis=0)[ok] / total[ok]
     above = float(np.median(strip[k - half - 1, cols]))
     below = float(np.median(strip[k + half + 1, cols]))
-    return out - encoding_bias(above, below, float(np.nanmedian(sig[good])), half)
+    rows = r0 + k + np.arange(-half - 1, half + 2)[:, None]
+    px = plane[rows[..., None], (cols * step)[None, :, None] + np.arange(step)]
+    lev = linear_to_srgb(np.clip([above, below], 0.0, 1.0))
+    return (out - encoding_bias(above, below, float(np.nanmedian(sig[good])), half),
+            float(lev[0] - lev[1]), _clip_shift(px, float(lev[0]), float(lev[1])))
+
+
+def _clip_shift(px: np.ndarray, above_enc: float, below_enc: float) -> float:
+    """Bound on the centroid's shift by samples clipped at 0 or 1 [px].
+
+    ``px``: (rows, blocks, columns) linear samples of the window, one row beyond each
+    end. The centroid of a monotonic edge's gradient over a window is its far end minus
+    the integral of the normalised profile, so raising samples by ``d`` moves it by
+    ``d / step`` px per row. Clipping spread evenly over a side (noise cut at 0) moves
+    that side's level alike and not the centroid; only the rows' excess over the
+    clipping at the dark (bright) side's outer row counts, each clipped sample taken
+    as having lost as much as the dark level's distance from 0 (the bright level's from
+    1): the codec's undershoot of a level is of the order of that level (a judgement:
+    common practice, no source).
+    """
+    step = abs(above_enc - below_enc)
+    if not step > 0:
+        return float("nan")
+    dark_first = above_enc < below_enc  # the dark side is the window's first row
+    low = np.mean(px <= 0.0, axis=(1, 2))
+    high = np.mean(px >= 1.0, axis=(1, 2))
+    low_ref = low[0] if dark_first else low[-1]
+    high_ref = high[-1] if dark_first else high[0]
+    lost = (np.sum(np.clip(low - low_ref, 0.0, None)) * min(above_enc, below_enc)
+            + np.sum(np.clip(high - high_ref, 0.0, None)) * (1.0 - max(above_enc, below_enc)))
+    return float(lost / step)
 
 
 def encoding_bias(level_above: float, level_below: float, sigma_px: float,
@@ -508,6 +550,76 @@ def encoding_bias(level_above: float, level_below: float, sigma_px: float,
     prof = level_below + (level_above - level_below) * ndtr(-y / sigma_px)
     grad = -np.gradient(np.asarray(linear_to_srgb(np.clip(prof, 0.0, None))), y)
     return float(np.sum(y * grad) / np.sum(grad))
+
+
+def chroma_offset_error(step_enc: dict[str, float], luma: tuple[float, float, float], *,
+                        spacing_px: float = CHROMA_ROW_SPACING_PX) -> dict[str, float]:
+    """1-sigma error of the r and b offsets from green where chroma is subsampled
+    vertically [px].
+
+    A stored channel is luma (every row) plus chroma (every ``spacing_px`` rows):
+    ``C' = Y' + (C' - Y')``. The edge of chroma is placed by the codec only to within
+    its sample spacing, taken as a uniform error over one spacing, ``spacing/sqrt(12)``
+    [1]_ (the spacing as the error's range is a judgement: common practice, no source).
+    A shift ``e`` of the chroma edge moves channel ``c``'s edge by ``e s_c``, with
+    ``s_c = (step_c - step_Y) / step_c`` the chroma's share of the channel's step, so
+    the offset from green by ``e (s_c - s_g)``. Capped at :data:`CENTROID_HALF_PX`
+    (a flat channel has no edge to place).
+
+    Parameters
+    ----------
+    step_enc : dict
+        ``{"r", "g", "b"}``: each channel's encoded step across the horizon (above minus
+        below) [0..1 scale], from :func:`horizon_colour_offsets`.
+    luma : (3,) tuple
+        The codec's luma weights ``K_R, K_G, K_B`` [-].
+    spacing_px : float
+        Rows between chroma samples [px]: 2 for 4:2:0, 1 for 4:2:2 and 4:4:4.
+
+    Returns
+    -------
+    dict
+        ``{"r": err, "b": err}`` [px]; NaN where a step is not finite.
+
+    References
+    ----------
+    .. [1] W. R. Bennett, "Spectra of quantized signals", Bell Syst. Tech. J. 27,
+       446-472 (1948) (uniform error over a step: variance step^2 / 12).
+    """
+    s = {c: float(step_enc.get(c, np.nan)) for c in _CHANNELS}
+    step_y = sum(k * s[c] for k, c in zip(luma, ("r", "g", "b")))
+    out = {}
+    for c in ("r", "b"):
+        if not all(np.isfinite(s[x]) for x in (c, "g")):
+            out[c] = float("nan")
+        elif min(abs(s[c]), abs(s["g"])) < 1e-6:
+            out[c] = float(CENTROID_HALF_PX)
+        else:
+            share = (s[c] - step_y) / s[c] - (s["g"] - step_y) / s["g"]
+            out[c] = min(abs(share) * spacing_px / math.sqrt(12.0), float(CENTROID_HALF_PX))
+    return out
+
+
+def clip_offset_error(clipped: dict[str, float]) -> dict[str, float]:
+    """1-sigma error of the r and b offsets from green from clipped samples [px].
+
+    Each channel's bound on its edge's shift by clipping (see :func:`_clip_shift`) is
+    taken as its error, the r (or b) and green channels' in quadrature (a judgement:
+    common practice, no source).
+
+    Parameters
+    ----------
+    clipped : dict
+        ``{"r", "g", "b"}``: each channel's bound [px], ``"clip_c"`` of
+        :func:`horizon_colour_offsets`.
+
+    Returns
+    -------
+    dict
+        ``{"r": err, "b": err}`` [px]; NaN where a fraction is not finite.
+    """
+    f = {c: float(clipped.get(c, np.nan)) for c in _CHANNELS}
+    return {c: min(float(math.hypot(f[c], f["g"])), float(CENTROID_HALF_PX)) for c in ("r", "b")}
 
 
 def _tukey_mean(d: np.ndarray) -> float:

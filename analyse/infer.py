@@ -13,7 +13,11 @@ compared with every observable together:
 A common time offset ``delta`` (camera clock error, plus the time the eye height's and
 the lens air's uncertainty shift the horizon by) enters every time-dependent residual.
 It has a Gaussian prior of the combined width and is profiled out analytically (the
-model is linear in ``delta`` near its best value). So with a trustworthy clock the
+model is linear in ``delta`` near its best value). Likewise a constant height offset per
+channel, with the lens colour offset's error as its prior width: the heights of a
+channel share that offset's error; profiling a linear term with a Gaussian prior gives
+the chi-square of its marginalisation (a fully correlated term in that channel's height
+errors). So with a trustworthy clock the
 absolute last-light times, which move about a second per K/km, carry their weight;
 with a poor clock only the shapes and differences remain.
 
@@ -76,6 +80,7 @@ class _Data:
     h_err: dict[str, np.ndarray]
     last: dict[str, tuple[float, float]]  # measured last light (t, err) [s]
     disc_flux: dict[str, float]  # the whole disc's flux in the recording's units
+    offset_err: dict[str, float] = field(default_factory=dict)  # colour offset, 1 sigma [arcsec]
 
 
 @dataclass(frozen=True)
@@ -187,7 +192,7 @@ def _prepare(measurement) -> _Data:
     tab = measurement.table
     scale = ob.plate_scale_arcsec_per_px
     sd = measurement.semidiameter_arcsec
-    t_bins, h_bins, h_err, last, blur = {}, {}, {}, {}, {}
+    t_bins, h_bins, h_err, last, blur, off_err = {}, {}, {}, {}, {}, {}
     for c in CHANNELS:
         ll = ob.last[c]
         if not np.isfinite(ll.t_unix_s) or not ll.method.startswith("fading fit to"):
@@ -207,7 +212,8 @@ def _prepare(measurement) -> _Data:
         per_frame = np.maximum(per_frame, 0.05 * scale)  # floor: 0.05 px (common practice, no source)
         t_bins[c], h_bins[c], h_err[c], _ = _bin_heights(t, hh, per_frame)
         h_err[c] = np.hypot(h_err[c], MODEL_FLOOR_ARCSEC)
-    return _Data(t_bins, h_bins, h_err, last, dict(ob.disc_flux))
+        off_err[c] = float(ob.colour_offset_dy_err_px.get(c, 0.0)) * scale
+    return _Data(t_bins, h_bins, h_err, last, dict(ob.disc_flux), off_err)
 
 
 class _SunInterp:
@@ -278,19 +284,40 @@ def _observed(data: _Data) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return np.concatenate(y), np.concatenate(e), np.concatenate(is_h)
 
 
-def _chi2(pred_values, pred_rate, y, err, is_h, clock_prior_s, scale_prior):
+def _offset_terms(data: _Data) -> tuple[np.ndarray, np.ndarray] | None:
+    """Columns (n, K) and prior widths (K,) [arcsec] of the channels' constant height
+    offsets, in the order of :func:`_observed`; None when no channel has a finite,
+    positive colour-offset error."""
+    sizes = [data.h_bins[c].size for c in data.last] + [1] * len(data.last)
+    cols, prior = [], []
+    for i, c in enumerate(data.last):
+        e = data.offset_err.get(c, 0.0)
+        if np.isfinite(e) and e > 0 and sizes[i]:
+            col = np.zeros(sum(sizes))
+            col[sum(sizes[:i]):sum(sizes[:i + 1])] = 1.0
+            cols.append(col)
+            prior.append(e)
+    return (np.stack(cols, axis=1), np.array(prior)) if cols else None
+
+
+def _chi2(pred_values, pred_rate, y, err, is_h, clock_prior_s, scale_prior, offsets=None):
     """Chi-square with the clock offset and plate-scale error profiled out (linear, priors).
 
-    Model: y = m(t - delta) * (1 + eps on heights) ~ m - rate*delta + eps*m*is_h.
+    Model: y = m(t - delta) * (1 + eps on heights) ~ m - rate*delta + eps*m*is_h, plus
+    ``offsets`` (columns, prior widths; :func:`_offset_terms`): per channel a constant
+    on its heights.
     """
     r = y - pred_values
     j = np.vstack([-pred_rate, np.where(is_h, pred_values, 0.0)]).T
+    sig = np.array([clock_prior_s, scale_prior])
+    if offsets is not None:
+        j, sig = np.hstack([j, offsets[0]]), np.concatenate([sig, offsets[1]])
     w = 1.0 / err**2
-    a = j.T @ (j * w[:, None]) + np.diag([1.0 / clock_prior_s**2, 1.0 / scale_prior**2])
+    a = j.T @ (j * w[:, None]) + np.diag(1.0 / sig**2)
     b = j.T @ (w * r)
     p = np.linalg.solve(a, b)
     resid = r - j @ p
-    chi2 = float(np.sum(resid**2 * w) + (p[0] / clock_prior_s) ** 2 + (p[1] / scale_prior) ** 2)
+    chi2 = float(np.sum(resid**2 * w) + np.sum((p / sig) ** 2))
     return chi2, float(p[0]), float(p[1])
 
 
@@ -355,14 +382,14 @@ class _Emulator:
             self.preds.update(self.make(todo))  # traced together: one integration
             bar.update(len(todo))
 
-    def profile(self, fine, y, err, is_h, clock_prior, scale_prior):
+    def profile(self, fine, y, err, is_h, clock_prior, scale_prior, offsets=None):
         from scipy.interpolate import CubicSpline
 
         g = np.array(sorted(self.preds))
         vals = np.stack([self.preds[x].values for x in g])
         rates = np.stack([self.preds[x].rate for x in g])
         v_f, r_f = CubicSpline(g, vals, axis=0)(fine), CubicSpline(g, rates, axis=0)(fine)
-        return np.array([_chi2(v, r, y, err, is_h, clock_prior, scale_prior)[0]
+        return np.array([_chi2(v, r, y, err, is_h, clock_prior, scale_prior, offsets)[0]
                          for v, r in zip(v_f, r_f)])
 
 
@@ -380,6 +407,7 @@ def infer_lapse_rate(measurement, obs, *, bands=None, progress: bool = False) ->
     clock_prior = _clock_prior_s(obs, sun, data.last["g"][0])
     scale_prior = _scale_prior(measurement)
     y, err, is_h = _observed(data)
+    offsets = _offset_terms(data)
 
     def make(gammas: list[float]) -> dict[float, _Prediction]:
         models = build_models(cond, gammas, bands=bands, azimuth_deg=sun.azimuth, rays=_RAYS,
@@ -390,7 +418,7 @@ def infer_lapse_rate(measurement, obs, *, bands=None, progress: bool = False) ->
     emu.add(SCAN_K_PER_KM, progress)
     fine = np.linspace(SCAN_K_PER_KM[0], SCAN_K_PER_KM[-1], 3801)  # 0.05 K/km steps
     for _ in range(3):  # trace the minimum and its 1-sigma ends exactly, re-spline
-        chi = emu.profile(fine, y, err, is_h, clock_prior, scale_prior)
+        chi = emu.profile(fine, y, err, is_h, clock_prior, scale_prior, offsets)
         k = int(np.argmin(chi))
         lo, hi = _crossings(fine, chi, chi[k] + max(chi[k] / max(y.size - 1, 1), 1.0))
         new = [fine[k]] + [x for x in (lo, hi) if np.isfinite(x)]
@@ -399,13 +427,14 @@ def infer_lapse_rate(measurement, obs, *, bands=None, progress: bool = False) ->
         if np.all(gaps < 0.05):
             break
         emu.add([round(float(x), 3) for x, gap in zip(new, gaps) if gap >= 0.05], progress)
-    chi = emu.profile(fine, y, err, is_h, clock_prior, scale_prior)
+    chi = emu.profile(fine, y, err, is_h, clock_prior, scale_prior, offsets)
     k = int(np.argmin(chi))
     best_g = float(fine[k])
     model = build_model(cond, best_g, bands=bands, azimuth_deg=sun.azimuth, rays=_RAYS,
                         span_arcmin=_SPAN_ARCMIN)
     pred = _predict(model, data, sun)
-    chi2, delta, eps = _chi2(pred.values, pred.rate, y, err, is_h, clock_prior, scale_prior)
+    chi2, delta, eps = _chi2(pred.values, pred.rate, y, err, is_h, clock_prior, scale_prior,
+                             offsets)
     best = _Trial(best_g, chi2, delta, int(y.size), pred.last, pred.detection_fraction,
                   pred.flux_scale, model, eps)
     dof = max(int(y.size) - 1, 1)

@@ -106,12 +106,16 @@ class FrameTable:
 
 def green_above_red(table: FrameTable, *, t_last_red: float, plate_scale_arcsec_per_px: float,
                     colour_offset_dy_px: dict[str, float] | None = None,
+                    colour_offset_dy_err_px: dict[str, float] | None = None,
                     window_s: float = OFFSET_WINDOW_S) -> tuple[float, float, int]:
     """Green upper limb above red [arcsec], median over the final window before red last light.
 
     ``colour_offset_dy_px`` holds the lens's vertical displacement of each channel's image
     relative to green (y down): a channel shifted down reads too low above the common
-    horizon line and is corrected by adding its displacement.
+    horizon line and is corrected by adding its displacement. Its 1-sigma error
+    ``colour_offset_dy_err_px`` [px] is common to every frame of the window, so it adds
+    in quadrature to the median's standard error (the frames' scatter) and does not
+    shrink with their number (NaN errors count as 0).
 
     Returns
     -------
@@ -128,14 +132,18 @@ def green_above_red(table: FrameTable, *, t_last_red: float, plate_scale_arcsec_
     h_r = table.apex_height_px["r"][sel] + dy.get("r", 0.0)
     d = (h_g - h_r) * plate_scale_arcsec_per_px
     med = float(np.median(d))
+    de = {c: float(np.nan_to_num((colour_offset_dy_err_px or {}).get(c, 0.0), nan=0.0))
+          for c in ("r", "g")}
+    common = float(np.hypot(de["r"], de["g"])) * plate_scale_arcsec_per_px
     if d.size == 1:
         e = table.apex_height_err_px
         err = float(np.hypot(e["g"][sel][0], e["r"][sel][0]) * plate_scale_arcsec_per_px)
-        return med, err, 1
+        return med, float(np.hypot(err, common)), 1
     spread = 1.4826 * float(np.median(np.abs(d - med)))
     if spread == 0.0:
         spread = float(np.std(d))
-    return med, 1.2533 * spread / np.sqrt(d.size), int(d.size)  # standard error of a median
+    sem = 1.2533 * spread / np.sqrt(d.size)  # standard error of a median
+    return med, float(np.hypot(sem, common)), int(d.size)
 
 
 @dataclass(frozen=True)
@@ -262,6 +270,7 @@ class Observables:
     disc_flux: dict[str, float] = field(default_factory=dict)
     blur_px: dict[str, float] = field(default_factory=dict)
     notes: tuple[str, ...] = field(default=())
+    colour_offset_dy_err_px: dict[str, float] = field(default_factory=dict)  # 1-sigma
 
 
 def sequence_observables(table: FrameTable, *, plate_scale_arcsec_per_px: float,
@@ -269,7 +278,9 @@ def sequence_observables(table: FrameTable, *, plate_scale_arcsec_per_px: float,
                          colour_offset_source: str, geometry: DiscGeometry,
                          disc_flux: dict[str, float] | None = None,
                          limb_u: dict[str, float] | None = None,
-                         semidiameter_px: float | None = None) -> Observables:
+                         semidiameter_px: float | None = None,
+                         colour_offset_dy_err_px: dict[str, float] | None = None
+                         ) -> Observables:
     """Last light per channel, green duration and green-above-red offset.
 
     Last light is the moment the visible flux falls below the model's detection
@@ -279,7 +290,8 @@ def sequence_observables(table: FrameTable, *, plate_scale_arcsec_per_px: float,
     chords give none, from ``disc_flux`` (per channel, in the recording's units); without
     either, last light is the moment the flux sinks into the noise. ``limb_u`` (per
     channel, the band-weighted linear limb-darkening coefficient) enters both; default
-    that of the channels' nominal wavelengths.
+    that of the channels' nominal wavelengths. ``colour_offset_dy_err_px``: the colour
+    offsets' 1-sigma errors [px] (see :func:`green_above_red`).
     """
     notes: list[str] = []
     limb_u = {c: (limb_u or {}).get(c, default_limb_u(c)) for c in CHANNELS}
@@ -307,7 +319,7 @@ def sequence_observables(table: FrameTable, *, plate_scale_arcsec_per_px: float,
         notes.append(f"green set {-duration:.2f} s before red: no green segment")
     offset, offset_err, used = green_above_red(
         table, t_last_red=lr.t_unix_s, plate_scale_arcsec_per_px=plate_scale_arcsec_per_px,
-        colour_offset_dy_px=colour_offset_dy_px)
+        colour_offset_dy_px=colour_offset_dy_px, colour_offset_dy_err_px=colour_offset_dy_err_px)
     if used == 0:
         notes.append("green-above-red offset not measurable: no frame with both limbs "
                      "measured in the final minute before red last light")
@@ -318,4 +330,5 @@ def sequence_observables(table: FrameTable, *, plate_scale_arcsec_per_px: float,
                      "as ratios between channels of one frame there")
     return Observables(last, float(duration), duration_err, offset, offset_err, used,
                        plate_scale_arcsec_per_px, plate_scale_source, colour_offset_dy_px,
-                       colour_offset_source, geometry, dict(disc_flux), blur, tuple(notes))
+                       colour_offset_source, geometry, dict(disc_flux), blur, tuple(notes),
+                       dict(colour_offset_dy_err_px or {}))

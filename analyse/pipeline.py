@@ -276,7 +276,8 @@ def measure_folder(folder: Path, obs: Observation, *, progress: bool = True) -> 
                      clock_utc_offset_h=obs.camera.clock_utc_offset_h)
     with _progress(len(fs.infos), progress, "measuring frames") as bar:
         res = _measure_frames(fs, lambda: bar.update(1))
-    return _observables(fs, obs, res.cols.table(), res.colour_dy, tuple(res.strip))
+    return _observables(fs, obs, res.cols.table(), res.colour_dy, tuple(res.strip),
+                        colour_edge=res.colour_edge)
 
 
 class _Results:
@@ -287,11 +288,17 @@ class _Results:
         self.strip: collections.deque = collections.deque(maxlen=_STRIP_KEEP)
         self.after_dark = 0
         self.colour_dy: dict[str, list[float]] = {"r": [], "b": []}
+        # per frame measured: each channel's encoded step and clipping bound
+        self.colour_edge: dict[str, list[float]] = {
+            f"{k}_{c}": [] for k in ("step", "clip") for c in CHANNELS}
 
     def add_colour(self, offs: dict[str, float]) -> None:
         for c in self.colour_dy:
             if np.isfinite(offs.get(c, np.nan)):
                 self.colour_dy[c].append(float(offs[c]))
+        for key, vals in self.colour_edge.items():
+            if np.isfinite(offs.get(key, np.nan)):
+                vals.append(float(offs[key]))
 
     def add(self, info, img, line, limbs, flags, box) -> None:
         if box is not None:  # apex columns back in frame coordinates
@@ -398,16 +405,39 @@ def _plate_scale(obs: Observation, calib: dict | None, geometry: DiscGeometry,
     return float(scale), source, notes
 
 
-def _colour_offsets(calib: dict | None, colour_dy: dict[str, list[float]], sun_xy):
-    """Vertical lens offsets of r and b from green at the Sun: calibration, else horizon."""
+def _colour_offsets(calib: dict | None, colour_dy: dict[str, list[float]], sun_xy,
+                    edge: dict[str, list[float]] | None = None, fs: FrameSet | None = None):
+    """Vertical lens offsets of r and b from green at the Sun, their source and 1-sigma
+    errors [px]: calibration (its error is not stored: 0), else the horizon edge.
+
+    The horizon's error: the standard error of the frames' median, and in quadrature
+    the systematic terms of :func:`analyse.horizon.chroma_offset_error` (4:2:0 chroma:
+    one chroma row per two) and :func:`analyse.horizon.clip_offset_error`, from the
+    frames' median steps and clipping. With no measurement the offsets are assumed
+    zero and their error is unknown (NaN).
+    """
     if calib is not None and calib.get("channel_offset_px"):
         from calibration.store import channel_offset_at
 
         offs = channel_offset_at(calib, *sun_xy)
-        return {c: float(offs[c][1]) for c in offs} | {"g": 0.0}, "calibration"
+        return ({c: float(offs[c][1]) for c in offs} | {"g": 0.0}, "calibration",
+                {c: 0.0 for c in offs} | {"g": 0.0})
     dy = {c: float(np.median(v)) if v else 0.0 for c, v in colour_dy.items()}
     source = "horizon edge" if any(colour_dy.values()) else "none (assumed zero)"
-    return dy | {"g": 0.0}, source
+    med = {k: float(np.median(v)) if v else float("nan") for k, v in (edge or {}).items()}
+    sys = hz.clip_offset_error({c: med.get(f"clip_{c}", 0.0) for c in CHANNELS})
+    if fs is not None and fs.chroma_subsampling == "4:2:0":  # 4:2:2 keeps every row
+        luma = lb.LUMA_BT709 if fs.colour_matrix == "BT.709" else lb.LUMA_BT601
+        chroma = hz.chroma_offset_error({c: med.get(f"step_{c}", np.nan) for c in CHANNELS},
+                                        luma)
+        sys = {c: float(np.hypot(sys[c], chroma[c])) for c in sys}
+    err = {}
+    for c, v in colour_dy.items():
+        v = np.asarray(v, float)
+        stat = (1.2533 * 1.4826 * float(np.median(np.abs(v - np.median(v)))) / np.sqrt(v.size)
+                if v.size >= 2 else float("nan"))  # standard error of a median
+        err[c] = float(np.hypot(stat, np.nan_to_num(sys[c], nan=0.0)))
+    return dy | {"g": 0.0}, source, err | {"g": 0.0}
 
 
 def _disc_flux(obs, table: FrameTable, track, sd_arcsec: float, scale: float, dy,
@@ -438,7 +468,8 @@ def _disc_flux(obs, table: FrameTable, track, sd_arcsec: float, scale: float, dy
     return out, limb_u
 
 
-def _observables(fs, obs, table: FrameTable, colour_dy, strip) -> Measurement:
+def _observables(fs, obs, table: FrameTable, colour_dy, strip, *,
+                 colour_edge: dict[str, list[float]] | None = None) -> Measurement:
     notes = list(fs.notes)
     calib = read_calibration(obs.camera.calibration)
     n_bad = int(np.count_nonzero(~table.horizon_found))
@@ -461,11 +492,13 @@ def _observables(fs, obs, table: FrameTable, colour_dy, strip) -> Measurement:
     x_sun = float(np.nanmedian(table.apex_x_px["g"])) if np.any(np.isfinite(
         table.apex_x_px["g"])) else 0.5 * fs.width
     y_sun = float(np.nanmedian(table.horizon_row_px))
-    dy, dy_source = _colour_offsets(calib, colour_dy, (x_sun, y_sun))
+    dy, dy_source, dy_err = _colour_offsets(calib, colour_dy, (x_sun, y_sun), colour_edge,
+                                            fs)
     disc_flux, limb_u = _disc_flux(obs, table, track, sd, scale, dy, calib)
     observables = sequence_observables(
         table, plate_scale_arcsec_per_px=scale, plate_scale_source=scale_source,
         colour_offset_dy_px=dy, colour_offset_source=dy_source, geometry=geometry,
+        colour_offset_dy_err_px=dy_err,
         disc_flux=disc_flux, limb_u=limb_u,
         semidiameter_px=sd / scale if np.isfinite(scale) else None)
     return Measurement(fs, table, observables, track.altitude_deg, sd, strip, calib,

@@ -13,9 +13,10 @@ What the folder holds, by ``[output] format``:
 - ``jpeg``: ``frame_00000.jpg``... with EXIF ``DateTimeOriginal`` (the camera clock's
   local time), ``SubSecTimeOriginal`` (milliseconds, 3 digits), ``OffsetTimeOriginal``
   and ``ExposureTime``; no frames.csv, so the readers take the EXIF times;
-- ``h264``: ``sunset.mp4``, H.264 4:2:0 (BT.709) whose presentation timestamps, in
-  units of 1/90000 s, are the exact (possibly variable) frame times from the video's
-  start, which ``observation.toml`` gives as ``[camera] video_start_utc``.
+- ``h264``: ``sunset.mp4``, H.264 4:2:0 (BT.709 matrix, sRGB transfer) whose
+  presentation timestamps, in units of 1/90000 s, are the exact (possibly variable)
+  frame times from the video's start, which ``observation.toml`` gives as
+  ``[camera] video_start_utc``.
 
 Every folder has ``observation.toml`` ([site], [air] as resolved for the model,
 [camera] plate scale, azimuth, clock keys, [model] layer top). Frame times written are
@@ -165,7 +166,8 @@ class VideoWriter:
         stream.time_base = VIDEO_TIME_BASE
         ctx = stream.codec_context
         ctx.time_base = VIDEO_TIME_BASE
-        ctx.colorspace = ctx.color_primaries = ctx.color_trc = 1  # BT.709 (ITU-T H.273)
+        ctx.colorspace = ctx.color_primaries = 1  # BT.709 matrix and primaries (ITU-T H.273)
+        ctx.color_trc = 13  # the frames' code values are sRGB's (IEC 61966-2-1; H.273 code 13)
         ctx.color_range = 1  # limited ("TV") range
         stream.options = {"crf": str(crf), "preset": preset}
         self.stream = stream

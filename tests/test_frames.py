@@ -603,9 +603,11 @@ def test_video_frame_corrupt_mid_stream(tmp_path):
 # --- colour matrix -----------------------------------------------------------------------
 
 
-def _matrix_clip(folder: Path, rows: int, encode_space: str, tag: int | None) -> Path:
-    """One-frame H.264 clip of a deep red (200, 60, 20), converted to YUV with
-    ``encode_space`` and its header's matrix_coefficients set to ``tag`` (None: untagged)."""
+def _matrix_clip(folder: Path, rows: int, encode_space: str, tag: int | None,
+                 colour: tuple[int, int, int] = (200, 60, 20), trc: int | None = None) -> Path:
+    """One-frame H.264 clip of one colour (a deep red), converted to YUV with
+    ``encode_space``, its header's matrix_coefficients set to ``tag`` and its
+    transfer_characteristics to ``trc`` (None: untagged)."""
     folder.mkdir()
     container = av.open(str(folder / "clip.mp4"), "w")
     stream = container.add_stream("libx264", rate=30)
@@ -613,8 +615,10 @@ def _matrix_clip(folder: Path, rows: int, encode_space: str, tag: int | None) ->
     stream.pix_fmt = "yuv420p"
     if tag is not None:
         stream.codec_context.colorspace = tag
+    if trc is not None:
+        stream.codec_context.color_trc = trc
     rgb = np.zeros((rows, 16 * rows // 9, 3), np.uint8)
-    rgb[:] = (200, 60, 20)
+    rgb[:] = colour
     frame = av.VideoFrame.from_ndarray(rgb, format="rgb24").reformat(
         format="yuv420p", src_colorspace=encode_space, dst_colorspace=encode_space)
     frame.pts = 0
@@ -651,3 +655,20 @@ def test_stills_colour_matrix(tmp_path):
         _csv(tmp_path / sub, [(name, _iso(T0))])
     assert open_frames(tmp_path / "j").colour_matrix == "BT.601"
     assert open_frames(tmp_path / "p").colour_matrix is None
+
+
+@pytest.mark.parametrize("trc, name, decode", [
+    (1, "BT.709", lambda v: np.where(v < 0.081, v / 4.5, ((v + 0.099) / 1.099) ** (1 / 0.45))),
+    (13, "sRGB", srgb_to_linear),
+    (None, "sRGB", srgb_to_linear),
+])
+def test_video_linearised_with_its_transfer(tmp_path, trc, name, decode):
+    # Code 128 of 255 is 0.26 of full light through BT.709's OETF inverted (ITU-R BT.709-6
+    # item 1.2) and 0.22 through sRGB's decoding (IEC 61966-2-1): the header's transfer
+    # characteristics (H.273 table 3: 1 BT.709, 13 sRGB) decide; untagged is sRGB.
+    fs = open_frames(_matrix_clip(tmp_path / "v", 360, "ITU601", 6, (128, 128, 128), trc),
+                     video_start_utc=T0)
+    assert fs.transfer == name
+    assert any("transfer function" in n for n in fs.notes) == (trc != 13)
+    _, img = next(iter(iter_frames(fs)))
+    assert float(img[180, 320, 1]) == pytest.approx(float(decode(128 / 255)), rel=0.01)

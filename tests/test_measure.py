@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+import pytest
 
 from analyse.measure import disc_geometry, exposure_changes, last_light
 
@@ -62,3 +63,42 @@ def test_exposure_jumps_are_found_but_smooth_dimming_is_not():
     assert exposure_changes(sky).size == 0
     sky[60:] *= 2.0
     assert list(exposure_changes(sky)) == [60]
+
+
+def _offset_table(n=200, seed=5):
+    """Synthetic frames: green 1.5 px above red, 0.1 px frame noise, all visible."""
+    from analyse.measure import CHANNELS, FrameTable
+
+    rng = np.random.default_rng(seed)
+    t = np.linspace(0.0, 50.0, n)
+    h = {"r": 10.0 + rng.normal(0, 0.1, n), "g": 11.5 + rng.normal(0, 0.1, n),
+         "b": np.full(n, np.nan)}
+    per = lambda v: {c: np.full(n, v) for c in CHANNELS}  # noqa: E731
+    return FrameTable(t, np.ones(n, bool), per(100.0)["r"], per(0.1)["r"], np.zeros(n),
+                      np.zeros(n), h, per(0.1), per(0.0), per(10.0), per(5.0), per(1.0),
+                      {c: np.ones(n, bool) for c in CHANNELS}, per(1.0), per(0.1), per(0.1),
+                      {c: np.zeros(n, bool) for c in CHANNELS}, ((),) * n, ("x",) * n)
+
+
+def test_colour_offset_error_is_common_to_all_frames():
+    from analyse.measure import green_above_red
+
+    tab = _offset_table()
+    dy = {"r": -0.2, "g": 0.0}
+    off, err, n = green_above_red(tab, t_last_red=50.0, plate_scale_arcsec_per_px=4.0,
+                                  colour_offset_dy_px=dy)
+    assert n == 200 and off == pytest.approx((1.5 + 0.2) * 4.0, abs=0.1)
+    off2, err2, _ = green_above_red(tab, t_last_red=50.0, plate_scale_arcsec_per_px=4.0,
+                                    colour_offset_dy_px=dy,
+                                    colour_offset_dy_err_px={"r": 0.3, "g": 0.0})
+    assert off2 == off
+    # Quadrature with the median's standard error; it does not shrink with frames.
+    assert err2 == pytest.approx(np.hypot(err, 0.3 * 4.0))
+    _, err_more, _ = green_above_red(_offset_table(2000), t_last_red=50.0,
+                                     plate_scale_arcsec_per_px=4.0, colour_offset_dy_px=dy,
+                                     colour_offset_dy_err_px={"r": 0.3})
+    assert err_more > 0.3 * 4.0
+    # Unknown errors count as zero rather than poisoning the result.
+    _, err_nan, _ = green_above_red(tab, t_last_red=50.0, plate_scale_arcsec_per_px=4.0,
+                                    colour_offset_dy_px=dy, colour_offset_dy_err_px={"r": np.nan})
+    assert err_nan == err

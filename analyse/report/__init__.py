@@ -183,7 +183,15 @@ def _offset_sentence(ob) -> str:
     return (f"Over the final minute before red last light the green upper limb stood "
             f"{_pm(ob.rg_offset_arcsec, ob.rg_offset_err_arcsec, 1, 'arcsec')} above the red "
             f"one (median of {ob.rg_offset_frames} frames, corrected for the lens's own colour "
-            f"offset taken from: {ob.colour_offset_source}).")
+            f"offset taken from: {ob.colour_offset_source}{_lens_error(ob)}).")
+
+
+def _lens_error(ob) -> str:
+    """The lens colour offset's share of the rg offset's error, when it is not small."""
+    e = ob.colour_offset_dy_err_px.get("r", 0.0) * ob.plate_scale_arcsec_per_px
+    if not (_ok(e) and e >= 0.1):
+        return ""
+    return f"; that correction's own error, {e:.1f} arcsec, is included"
 
 
 def _lapse_sentences(inf, layer_top_m: float) -> list[str]:
@@ -533,6 +541,7 @@ def _recording_rows(m) -> list[tuple[str, str]]:
     rows += [("Time source", fs.time_source),
              ("Chroma subsampling", fs.chroma_subsampling or "none (full colour resolution)"),
              ("Colour matrix", fs.colour_matrix or "none (stored as RGB)"),
+             ("Transfer function", f"{fs.transfer} (code values to linear light)"),
              ("Exposure", _exposure(fs))]
     alt = np.asarray(m.sun_altitude_deg, float)
     if alt.size and np.any(np.isfinite(alt)):

@@ -37,6 +37,11 @@ from analyse import limb as lb
 from analyse._limbworker import LimbMeasurer
 from analyse.errors import InputError
 from analyse.frames import FrameSet, iter_frames, open_frames
+from analyse.horizon_colour import (
+    chroma_offset_error,
+    clip_offset_error,
+    horizon_colour_offsets,
+)
 from analyse.measure import (
     CHANNELS,
     DiscGeometry,
@@ -371,7 +376,7 @@ def _measure_frames(fs: FrameSet, tick: Callable[[], object], *,
                 waiting.append((info, img, line, flags, box))
                 if line.found:
                     if lines % stride == 0:
-                        res.add_colour(hz.horizon_colour_offsets(
+                        res.add_colour(horizon_colour_offsets(
                             img, line, exclude_x=_sun_columns(sun)))
                     prior, lines = line, lines + 1
                 if sun.found:
@@ -411,8 +416,8 @@ def _colour_offsets(calib: dict | None, colour_dy: dict[str, list[float]], sun_x
     errors [px]: calibration (its error is not stored: 0), else the horizon edge.
 
     The horizon's error: the standard error of the frames' median, and in quadrature
-    the systematic terms of :func:`analyse.horizon.chroma_offset_error` (4:2:0 chroma:
-    one chroma row per two) and :func:`analyse.horizon.clip_offset_error`, from the
+    the systematic terms of :func:`analyse.horizon_colour.chroma_offset_error` (4:2:0 chroma:
+    one chroma row per two) and :func:`analyse.horizon_colour.clip_offset_error`, from the
     frames' median steps and clipping. With no measurement the offsets are assumed
     zero and their error is unknown (NaN).
     """
@@ -425,11 +430,11 @@ def _colour_offsets(calib: dict | None, colour_dy: dict[str, list[float]], sun_x
     dy = {c: float(np.median(v)) if v else 0.0 for c, v in colour_dy.items()}
     source = "horizon edge" if any(colour_dy.values()) else "none (assumed zero)"
     med = {k: float(np.median(v)) if v else float("nan") for k, v in (edge or {}).items()}
-    sys = hz.clip_offset_error({c: med.get(f"clip_{c}", 0.0) for c in CHANNELS})
+    sys = clip_offset_error({c: med.get(f"clip_{c}", 0.0) for c in CHANNELS})
     if fs is not None and fs.chroma_subsampling == "4:2:0":  # 4:2:2 keeps every row
         luma = lb.LUMA_BT709 if fs.colour_matrix == "BT.709" else lb.LUMA_BT601
-        chroma = hz.chroma_offset_error({c: med.get(f"step_{c}", np.nan) for c in CHANNELS},
-                                        luma)
+        chroma = chroma_offset_error({c: med.get(f"step_{c}", np.nan) for c in CHANNELS},
+                                     luma)
         sys = {c: float(np.hypot(sys[c], chroma[c])) for c in sys}
     err = {}
     for c, v in colour_dy.items():

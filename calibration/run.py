@@ -41,6 +41,7 @@ from analyse import horizon as hz
 from analyse.atmosphere import linear_layer_atmosphere
 from analyse.errors import InputError
 from analyse.frames import FrameSet, iter_frames, open_frames
+from analyse.horizon_colour import horizon_colour_offsets
 from analyse.observation import Observation, format_utc, read_observation
 from analyse.outfolder import atomic_folder, check_output, default_output
 from analyse.refraction import make_medium, refraction_table
@@ -125,7 +126,7 @@ def measure_frame(img: np.ndarray, *, prior: hz.HorizonLine | None = None) -> tu
     line = hz.find_horizon(img, exclude_x=exclude, prior=prior)
     if not line.found and prior is not None:
         line = hz.find_horizon(img, exclude_x=exclude)
-    dy = hz.horizon_colour_offsets(img, line, exclude_x=exclude) if line.found else {}
+    dy = horizon_colour_offsets(img, line, exclude_x=exclude) if line.found else {}
     if not loc.found:
         return None, None, line, dy, False, loc.message
     y0, y1, x0, x1 = op.crop_box(loc, img.shape)

@@ -59,7 +59,7 @@ def test_pipeline_offset_error_has_the_chroma_term_only_for_420():
     _, _, err_422 = pl._colour_offsets(None, dy, (0, 0), edge, _fs("4:2:2", "BT.601"))
     assert err_422 == err_png  # 4:2:2 keeps every row of chroma
     _, _, err_420 = pl._colour_offsets(None, dy, (0, 0), edge, _fs("4:2:0", "BT.601"))
-    from analyse.horizon import chroma_offset_error
+    from analyse.horizon_colour import chroma_offset_error
 
     chroma = chroma_offset_error({"r": 0.06, "g": 0.035, "b": 0.016}, (0.299, 0.587, 0.114))
     assert err_420["r"] == pytest.approx(np.hypot(err_png["r"], chroma["r"]))

@@ -17,15 +17,17 @@ name     row    roll    apex r / g   last r / g     green
 base     0.04   0.012   0.05 / 0.10  +0.00 / -0.03  -0.03
 tiff16   0.04   0.010   0.06 / 0.07  +0.01 / -0.05  -0.06
 shake    0.04   0.012   0.06 / 0.12  +0.01 / -0.00  -0.01
-lateral  0.05   0.008   0.15 / 0.14  +0.04 / -0.02  -0.07
-h264     0.08   0.013   0.11 / 0.25  +0.04 / -0.05  -0.09
+lateral  0.05   0.008   0.15 / 0.13  +0.04 / -0.02  -0.06
+h264     0.08   0.013   0.13 / 0.25  +0.04 / -0.01  -0.05
 jpeg85   0.30   0.008   0.34 / 0.26  +0.04 / +0.00  -0.04
 =======  =====  ======  ===========  =============  ======
 
 JPEG quality 85 misses the horizon's 0.2 px (+0.27 px: the codec's DCT and chroma
 quantisation move the dim green edge, the same in every frame; the same scene as 8-bit
-PNG is unbiased, see analyse/horizon.py, "Limits") and the red apex's 0.3 px; its
-tolerances below are what it reaches, with a margin. The others meet the issues'
+PNG is unbiased, see analyse/horizon.py, "Limits"; re-encoded at q75-q95 with the edge
+at other places in the 8-row blocks the bias ranges from -0.06 to +0.32 px) and the red
+apex's 0.3 px (frame-to-frame scatter of the codec's blocks); its tolerances below are
+what it reaches, with a margin. The others meet the issues'
 tolerances; H.264 does so with the 4:2:0 colour leak removed (analyse/limb.py; without
 it green read 0.23 px low on average, 0.36 px at most).
 """
@@ -191,14 +193,37 @@ def test_last_light_and_green_duration(report, recording, name):
 
 
 @pytest.mark.parametrize("name", VARIANTS)
+def test_green_above_red_within_its_error(report, recording, name):
+    """The green-above-red offset against the scenario's truth (the forward model's own
+    offset over the same final minute): within three of its stated sigmas (common
+    practice, no source), the sigma taken no smaller than 0.02 px (a judgement: what the
+    channels' limb fits may share across frames, which a median's standard error does not
+    show; the full-colour recordings' errors are 0.007 px and their offsets 0.3-2.4 of
+    them off). On 4:2:0 recordings the error is dominated by the horizon's colour-offset
+    term (analyse/horizon_colour.py); without it jpeg85 stood 11 sigma off.
+
+    Reached (arcsec, truth): base 6.02 +- 0.03 (5.99), tiff16 5.89 +- 0.03 (5.85), shake
+    6.43 +- 0.03 (6.36), lateral 6.14 +- 0.09 (6.11), h264 6.61 +- 1.01 (6.69), jpeg85
+    6.85 +- 1.19 (5.50).
+    """
+    ob = report(name).result["observables"]
+    truth = recording(name).truth["rg_offset_arcsec"]
+    err = ob["rg_offset_err_arcsec"]
+    assert err > 0.0
+    floor = 0.02 * ob["plate_scale_arcsec_per_px"]
+    assert abs(ob["rg_offset_arcsec"] - truth) <= 3.0 * math.hypot(err, floor), (
+        f"{ob['rg_offset_arcsec']:.2f} +- {err:.2f} against {truth:.2f} arcsec")
+
+
+@pytest.mark.parametrize("name", VARIANTS)
 def test_inference_brackets_the_true_lapse_rate(report, recording, name):
     """The true GAMMA lies in the 2-sigma interval, and the interval is no wider than the
     green last-light time alone would allow with the fit's own clock prior.
 
-    2-sigma intervals reached (true GAMMA): base 5.5..7.45 (6.5), tiff16 -1.3..0.9 (0),
-    jpeg85 -27.8..-23.8 (-25; chi-square 170 for 32: scaled by 2.3), shake 19.1..20.85
-    (20), h264 38.0..40.05 (40), lateral 10.6..12.95 (12) K/km: half-widths 0.9-2.0
-    K/km, where the last-light bound below gives 1.3-2.5 K/km.
+    2-sigma intervals reached (true GAMMA): base 5.45..7.4 (6.5), tiff16 -1.3..0.9 (0),
+    jpeg85 -26.3..-24.4 (-25), shake 19.05..20.75 (20), h264 38.25..40.6 (40), lateral
+    10.6..12.85 (12) K/km: half-widths 0.9-1.2 K/km, where the last-light bound below
+    gives 1.3-2.5 K/km.
     """
     rec = recording(name)
     inf = report(name).result["inference"]

@@ -13,18 +13,14 @@ import pytest
 from scipy.special import ndtr
 
 from analyse.frames import linear_to_srgb, srgb_to_linear
-from analyse.horizon import (
+from analyse.horizon import TUKEY_C, HorizonLine, column_edges, find_horizon, robust_line
+from analyse.horizon_colour import (
     CENTROID_HALF_PX,
-    TUKEY_C,
-    HorizonLine,
     _clip_shift,
     chroma_offset_error,
     clip_offset_error,
-    column_edges,
     encoding_bias,
-    find_horizon,
     horizon_colour_offsets,
-    robust_line,
 )
 from tests.synthetic import Scene, render
 

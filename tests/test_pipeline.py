@@ -20,10 +20,10 @@ import cv2
 import numpy as np
 import pytest
 
-from analyse import horizon as hz
 from analyse import pipeline as pl
 from analyse.errors import InputError
 from analyse.frames import iter_frames, open_frames
+from analyse.horizon_colour import horizon_colour_offsets
 from analyse.measure import CHANNELS
 from analyse.writers import VideoWriter, run_simulate
 
@@ -94,7 +94,7 @@ def _reference(fs):
         rows.append((line, limbs, flags))
         if line.found:
             prior = line
-            offs = hz.horizon_colour_offsets(img, line, exclude_x=(
+            offs = horizon_colour_offsets(img, line, exclude_x=(
                 sun.x_px - 1.3 * sun.radius_px - 10, sun.x_px + 1.3 * sun.radius_px + 10)
                 if sun.found else None)
             for c in colour:

@@ -380,6 +380,9 @@ def _open_video(folder: Path, video: Path, csv_times: dict[str, float] | None,
     elif probe.transfer != "sRGB":
         notes.append(f"code values decoded to linear light with the {probe.transfer} "
                      "transfer function the video names")
+    if probe.transfer == "PQ":
+        notes.append("PQ video: light is relative to 10000 cd/m^2, so a disc clipped by "
+                     "the camera below that peak is not recognised as saturated")
     if probe.colour_matrix and not probe.matrix_tagged:
         notes.append(f"the video does not name its colour matrix: decoded as "
                      f"{probe.colour_matrix} ({probe.height} rows)")

@@ -328,3 +328,21 @@ def test_report_renders_in_headless_chromium(constrained, tmp_path):
     dom = subprocess.run([browser, *flags, "--dump-dom", report.as_uri()],
                          capture_output=True, timeout=60, text=True).stdout
     assert dom.count("<img") == 6 and "What the data constrain" in dom
+
+
+def test_lens_error_named_with_its_remedy():
+    # The rg sentence names the colour offset's share of the error (r offset error x plate
+    # scale) when it is 0.1 arcsec or more, and points to a calibration when the offset
+    # came from the horizon; a calibration's own offsets carry no such hint.
+    from types import SimpleNamespace
+
+    from analyse.report import _lens_error
+
+    def ob(err_px, source):
+        return SimpleNamespace(colour_offset_dy_err_px={"r": err_px},
+                               plate_scale_arcsec_per_px=4.0, colour_offset_source=source)
+
+    words = _lens_error(ob(0.25, "horizon edge"))
+    assert "1.0 arcsec" in words and "limbtrace calibrate" in words
+    assert "calibrate" not in _lens_error(ob(0.25, "calibration"))
+    assert _lens_error(ob(0.01, "horizon edge")) == ""

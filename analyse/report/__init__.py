@@ -191,7 +191,9 @@ def _lens_error(ob) -> str:
     e = ob.colour_offset_dy_err_px.get("r", 0.0) * ob.plate_scale_arcsec_per_px
     if not (_ok(e) and e >= 0.1):
         return ""
-    return f"; that correction's own error, {e:.1f} arcsec, is included"
+    hint = (" (measuring the lens with `limbtrace calibrate` would remove most of it)"
+            if ob.colour_offset_source == "horizon edge" else "")
+    return f"; that correction's own error, {e:.1f} arcsec, is included{hint}"
 
 
 def _lapse_sentences(inf, layer_top_m: float) -> list[str]:

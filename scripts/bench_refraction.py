@@ -27,10 +27,10 @@ import time
 import numpy as np
 from scipy.integrate import solve_ivp
 
+from analyse._raytrace import _Profile
 from analyse.atmosphere import linear_layer_atmosphere
 from analyse.predict import Conditions, predict_sunset
 from analyse.refraction import (
-    _Profile,
     make_medium,
     trace_rays,
     transfer_curve,

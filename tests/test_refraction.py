@@ -10,11 +10,10 @@ import pytest
 from scipy.integrate import solve_ivp
 from scipy.interpolate import CubicSpline
 
+from analyse._raytrace import ESCAPED, SEA
 from analyse.atmosphere import linear_layer_atmosphere, tabulated_atmosphere
 from analyse.refraction import (
     EARTH_RADIUS_M,
-    ESCAPED,
-    SEA,
     Medium,
     earth_radius_of_curvature_m,
     make_medium,

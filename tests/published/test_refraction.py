@@ -6,10 +6,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from analyse._raytrace import SEA
 from analyse.atmosphere import linear_layer_atmosphere, tabulated_atmosphere
 from analyse.predict import Conditions, predict_sunset
 from analyse.refraction import (
-    SEA,
     make_medium,
     refraction_table,
     sea_horizon,

@@ -38,15 +38,16 @@ run one after the other, so they see the same load on the machine.
 
 Measured here (2026-12, 2 cores shared with other work, load 1-4): the recordings come
 out at 2.6-2.7 Mbit/s (a dark sky; cameras write 10-30 Mbit/s, which costs the decoder
-more) and decode at 60-120 frames/s. First version: measuring at 3.5-4.6 frames/s
-(ratio 0.03-0.06), about 90 % of it in :func:`analyse.limb.measure_limbs`, peak memory
-348 MB (20 s) and 354 MB (60 s). With the limb fits made about 3x cheaper (binned
-profiles, batched Jacobians, warm starts; same results): 126 ms of CPU a frame in the
-measuring thread at load 3-5, ratio 0.08. With the limb fits in a worker process: peak
-486 MB (the worker adds about 140 MB); at load 3-5 no faster, since the second core was
-busy (on an idle machine the two processes' shares, about 1/3 and 2/3 of the work, bound
-the gain to about 1.5x). The target of 0.8 needs about 10x less work per frame again;
-see DEVELOPERS.md, "Known gaps".
+more) and decode at 135-190 frames/s (5-7 ms a frame, 7-9.5 ms of CPU). The analysis's
+own reader (decoding and linearising to float, before any measuring) reaches 0.56-0.75
+of that. First version: measuring at 3.5-4.6 frames/s (ratio 0.03-0.06), about 90 % of
+it in :func:`analyse.limb.measure_limbs`, peak memory 348 MB (20 s) and 354 MB (60 s).
+With the limb fits about 3x cheaper and in a worker process: 8-12 frames/s at load 0.6-2
+(ratio 0.06), 5.6 frames/s for the 60 s recording while other tests ran (0.03); peak
+500 MB (20 s) and 503 MB (60 s). The target of 0.8 would leave under 2 ms of CPU a frame
+for everything after decoding; see DEVELOPERS.md, "Known gaps". The printed green
+duration is not a check of accuracy: the video's frames are blends of key frames 0.2 s
+apart, whose fading near last light is not a sunset's.
 """
 
 from __future__ import annotations

@@ -323,6 +323,12 @@ def _colour_stride(n_frames: int) -> int:
     return max(1, min(_COLOUR_STRIDE_MAX, n_frames // _COLOUR_SAMPLES))
 
 
+def _luma(fs: FrameSet) -> tuple[float, float, float] | None:
+    """Luma weights of the matrix the frames' colour was stored with (BT.709 or BT.601,
+    the latter also JPEG's); None for RGB storage or another matrix."""
+    return {"BT.709": lb.LUMA_BT709, "BT.601": lb.LUMA_BT601}.get(fs.colour_matrix or "")
+
+
 def _chroma_luma(fs: FrameSet) -> tuple[float, float, float] | None:
     """Luma weights of a 4:2:0 video for :func:`analyse.limb.measure_limbs`, whose
     colour leak between channels they predict: those of the matrix the video was
@@ -335,7 +341,7 @@ def _chroma_luma(fs: FrameSet) -> tuple[float, float, float] | None:
     """
     if fs.kind != "video" or fs.chroma_subsampling != "4:2:0":
         return None
-    return {"BT.709": lb.LUMA_BT709, "BT.601": lb.LUMA_BT601}.get(fs.colour_matrix or "")
+    return _luma(fs)
 
 
 def _measure_frames(fs: FrameSet, tick: Callable[[], object], *,
@@ -432,9 +438,8 @@ def _colour_offsets(calib: dict | None, colour_dy: dict[str, list[float]], sun_x
     med = {k: float(np.median(v)) if v else float("nan") for k, v in (edge or {}).items()}
     sys = clip_offset_error({c: med.get(f"clip_{c}", 0.0) for c in CHANNELS})
     if fs is not None and fs.chroma_subsampling == "4:2:0":  # 4:2:2 keeps every row
-        luma = lb.LUMA_BT709 if fs.colour_matrix == "BT.709" else lb.LUMA_BT601
         chroma = chroma_offset_error({c: med.get(f"step_{c}", np.nan) for c in CHANNELS},
-                                     luma)
+                                     _luma(fs) or lb.LUMA_BT601)
         sys = {c: float(np.hypot(sys[c], chroma[c])) for c in sys}
     err = {}
     for c, v in colour_dy.items():

@@ -191,7 +191,7 @@ def _lens_error(ob) -> str:
     e = ob.colour_offset_dy_err_px.get("r", 0.0) * ob.plate_scale_arcsec_per_px
     if not (_ok(e) and e >= 0.1):
         return ""
-    hint = (" (measuring the lens with `limbtrace calibrate` would remove most of it)"
+    hint = ("; measuring the lens with limbtrace calibrate would remove most of it"
             if ob.colour_offset_source == "horizon edge" else "")
     return f"; that correction's own error, {e:.1f} arcsec, is included{hint}"
 
@@ -591,7 +591,10 @@ def _observation_rows(m, inf, obs) -> list[tuple[str, str]]:
             ("Plate scale", f"{ob.plate_scale_arcsec_per_px:.4f} arcsec/px, from "
              f"{ob.plate_scale_source}"),
             ("Colour offsets (vertical, relative to green)",
-             ", ".join(f"{_NAMES[c]} {v:+.2f} px" for c, v in ob.colour_offset_dy_px.items())
+             ", ".join(f"{_NAMES[c]} {v:+.2f}"
+                       + (f" ± {e:.2f}" if _ok(e := ob.colour_offset_dy_err_px.get(c, np.nan))
+                          and e > 0 else "") + " px"
+                       for c, v in ob.colour_offset_dy_px.items())
              + f", from {ob.colour_offset_source}"),
             ("Disc flattening (vertical / horizontal)",
              _pm(geo.flattening, geo.flattening_err, 3, "") if _ok(geo.flattening)

@@ -346,3 +346,17 @@ def test_lens_error_named_with_its_remedy():
     assert "1.0 arcsec" in words and "limbtrace calibrate" in words
     assert "calibrate" not in _lens_error(ob(0.25, "calibration"))
     assert _lens_error(ob(0.01, "horizon edge")) == ""
+
+
+def test_apexes_after_a_channels_last_light_are_not_drawn():
+    # After a channel's measured last light (plus its error) its light is below the
+    # detection level; an apex found there is noise and figure (a) leaves it out.
+    from types import SimpleNamespace
+
+    from analyse.report import _before_last
+
+    tab = SimpleNamespace(t_unix_s=np.array([0.0, 1.0, 2.0, 3.0]))
+    ob = SimpleNamespace(last={"g": SimpleNamespace(t_unix_s=1.9, err_s=0.2),
+                               "r": SimpleNamespace(t_unix_s=float("nan"), err_s=float("nan"))})
+    assert _before_last(tab, ob, "g").tolist() == [True, True, True, False]
+    assert _before_last(tab, ob, "r").size == 4

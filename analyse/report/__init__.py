@@ -311,11 +311,21 @@ def _window(t_rel: np.ndarray, window: tuple[float, float]) -> np.ndarray:
     return (t_rel >= window[0]) & (t_rel <= window[1])
 
 
+def _before_last(tab, ob, c: str) -> np.ndarray:
+    """Frames up to a channel's measured last light (and its error); all if unknown.
+    After it the channel's light is below the detection level, and an apex found there
+    is the noise's."""
+    ll = ob.last[c]
+    if not _ok(ll.t_unix_s):
+        return np.ones(tab.t_unix_s.shape, bool)
+    return tab.t_unix_s <= ll.t_unix_s + (ll.err_s if _ok(ll.err_s) else 0.0)
+
+
 def _fig_heights(m, curves, ref: _Reference) -> dict:
     tab, ob = m.table, m.observables
     t = tab.t_unix_s - ref.t_unix_s
     sel = _window(t, HEIGHT_WINDOW_S)
-    h = {c: np.where(tab.visible[c] & tab.horizon_found,
+    h = {c: np.where(tab.visible[c] & tab.horizon_found & _before_last(tab, ob, c),
                      tab.apex_height_px[c] + ob.colour_offset_dy_px.get(c, 0.0), np.nan)[sel]
          for c in HEIGHT_CHANNELS}
     title = "Upper limb above the sea horizon"
@@ -335,7 +345,9 @@ def _fig_heights(m, curves, ref: _Reference) -> dict:
            f"{ob.plate_scale_arcsec_per_px:.3f} arcsec/px ({ob.plate_scale_source}).")
     cap += (" Blue is left out: at sunset its limb is too faint to locate reliably, and the "
             "fit does not use it. Apexes lower than three times the edge blur (the last second "
-            "or so) are drawn but not fitted: there the blur, not the limb, sets the height.")
+            "or so) are drawn but not fitted: there the blur, not the limb, sets the height. "
+            "Frames after a channel's last light are not drawn: its light is below the "
+            "detection level there, and an apex found in them is the noise's.")
     cap += (" Lines: the best-fitting model on the camera's clock (fitted time offset and "
             "plate-scale correction applied); lower panel: measured minus model."
             if curves is not None else " No model is drawn: nothing was fitted.")
@@ -382,15 +394,19 @@ def _fig_strip(m, ref: _Reference) -> dict:
                        "(the limb apex was never measured close enough to the horizon).")
     pick = np.unique(np.round(np.linspace(0, len(strip) - 1, min(STRIP_PANELS, len(strip)))))
     shown = [strip[int(i)] for i in pick]
+    last = {c: ll.t_unix_s + (ll.err_s if _ok(ll.err_s) else 0.0)
+            for c, ll in m.observables.last.items() if _ok(ll.t_unix_s)}
+    ticks = [{c: h for c, h in s.apex_height_px.items() if s.t_unix_s <= last.get(c, np.inf)}
+             for s in shown]
     png = fg.strip_png([np.asarray(s.crop, dtype=float) for s in shown],
                        [f"{s.t_unix_s - ref.t_unix_s:+.2f} s" for s in shown],
-                       [s.horizon_row_px for s in shown], [s.apex_height_px for s in shown])
+                       [s.horizon_row_px for s in shown], ticks)
     cap = (f"{len(shown)} of the {len(strip)} crops kept around the green limb's apex, "
            f"labelled with the time relative to {ref.label}; registered to the horizon, "
            "encoded as sRGB for display with one common contrast stretch (so fading is "
            "real), pixels enlarged without smoothing. White ticks at both edges: the "
            "horizon line; coloured ticks at the right edge: each channel's measured limb "
-           "apex.")
+           "apex, up to that channel's last light.")
     return _figure("c", title, cap, png)
 
 

@@ -198,16 +198,37 @@ def disc_geometry(apex_height_px, width_px) -> DiscGeometry:
     return DiscGeometry(float(rx), rx_err, float(f), f_err, h.size, "")
 
 
-def exposure_changes(sky_level: np.ndarray, *, jump: float = 0.15) -> np.ndarray:
-    """Frame indices where the sky level jumps by more than ``jump`` (relative) from the last.
+def exposure_changes(sky_level: np.ndarray, *, jump: float = 0.15, run: int = 3) -> np.ndarray:
+    """Frame indices where the sky level steps by more than ``jump`` (relative).
 
-    The sky dims smoothly at sunset; an automatic exposure shows as steps.
+    The sky dims smoothly at sunset; an automatic exposure shows as a step: the median
+    of the ``run`` frames from a frame on differs from that of the ``run`` frames before
+    it; a clean step shows at the ``run`` frames around it, and is placed at their middle.
+    A single frame off the trend
+    (the sky beside a faint apex is noisy) moves neither median and is not a step.
+    NaN levels are skipped.
     """
     s = np.asarray(sky_level, dtype=float)
     if s.size < 2:
         return np.zeros(0, dtype=int)
-    ratio = s[1:] / np.where(s[:-1] > 0, s[:-1], np.nan)
-    return np.flatnonzero(np.abs(np.log(ratio)) > np.log1p(jump)) + 1
+    log_s = np.log(np.where(s > 0, s, np.nan))
+    step = np.full(s.size, np.nan)
+    for k in range(1, s.size):
+        before, after = log_s[max(0, k - run):k], log_s[k:k + run]
+        if np.any(np.isfinite(before)) and np.any(np.isfinite(after)):
+            step[k] = abs(np.nanmedian(after) - np.nanmedian(before))
+    hit = np.nan_to_num(step, nan=0.0) > np.log1p(jump)
+    out, k = [], 0
+    while k < s.size:  # each run of hits is one step, at its middle
+        if hit[k]:
+            end = k
+            while end + 1 < s.size and hit[end + 1]:
+                end += 1
+            out.append((k + end + 1) // 2)
+            k = end + 1
+        else:
+            k += 1
+    return np.asarray(out, dtype=int)
 
 
 def disc_flux_scale(height_px, flux, visible, *, blur_px: float, model_height_px,

@@ -205,6 +205,21 @@ def _sun_columns(sun: lb.SunLocation) -> tuple[float, float] | None:
     return sun.x_px - 1.3 * sun.radius_px - 10, sun.x_px + 1.3 * sun.radius_px + 10
 
 
+def _same_sun(sun: lb.SunLocation, before: lb.SunLocation | None) -> bool:
+    """Whether a first guess can be the Sun of the previous frame's guess ``before``.
+
+    Between frames the Sun may move (it sets, the camera is re-aimed) or shrink (it sets),
+    but not both jump by more than two of its radii (plus 20 px) and change its size more
+    than twofold: such a guess is something else, e.g. a smooth sky glow that a codec's
+    smoothing of the noise lets stand out once the Sun has set (seen on H.264).
+    """
+    if before is None or not before.found:
+        return True
+    jump = float(np.hypot(sun.x_px - before.x_px, sun.y_px - before.y_px))
+    sizes = sorted((max(sun.radius_px, 1.0), max(before.radius_px, 1.0)))
+    return jump <= 2.0 * (before.radius_px + 20.0) or sizes[1] <= 2.0 * sizes[0]
+
+
 def _register(img, prior, sun_prior):
     """Sun and horizon of one frame and the crop for its limbs.
 
@@ -214,6 +229,8 @@ def _register(img, prior, sun_prior):
     """
     flags: list[str] = []
     sun = lb.locate_sun(img, prior if prior is not None and prior.found else None)
+    if sun.found and not _same_sun(sun, sun_prior):
+        sun, flags = sun_prior, flags + ["sun-guess-rejected"]
     if not sun.found and sun_prior is not None:
         sun = sun_prior
     exclude = _sun_columns(sun)

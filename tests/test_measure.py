@@ -63,6 +63,19 @@ def test_exposure_jumps_are_found_but_smooth_dimming_is_not():
     assert exposure_changes(sky).size == 0
     sky[60:] *= 2.0
     assert list(exposure_changes(sky)) == [60]
+    sky[80:] /= 1.5  # a second step down
+    assert list(exposure_changes(sky)) == [60, 80]
+
+
+def test_a_single_odd_sky_level_is_not_an_exposure_change():
+    # One frame 30 % off its neighbours (the sky beside a faint apex is noisy; seen on
+    # a locked-exposure recording) is not a step; NaN frames are skipped.
+    sky = 0.5 * np.exp(-np.arange(100) / 200.0)
+    sky[40] *= 1.3
+    sky[70] = np.nan
+    assert exposure_changes(sky).size == 0
+    sky[75:] *= 0.5
+    assert list(exposure_changes(sky)) == [75]
 
 
 def _offset_table(n=200, seed=5):

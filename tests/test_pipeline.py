@@ -267,3 +267,20 @@ def test_chroma_leak_weights_follow_the_decoding_matrix():
     assert _chroma_luma(fs("video", "4:2:0", "BT.2020")) is None
     assert _chroma_luma(fs("video", "4:4:4", "BT.709")) is None
     assert _chroma_luma(fs("stills", "4:2:0", "BT.601")) is None
+
+
+def test_a_first_guess_that_jumps_and_changes_size_is_not_the_sun():
+    # Seen on an H.264 recording after sunset: the smooth sky glow at the top of the
+    # frame (radius ~280 px) was taken for the Sun that had just set on the horizon
+    # (radius ~18 px), and its "flux" kept last light from being found. A Sun may move
+    # (re-aimed camera) or shrink (setting) between frames, not both at once (the rule
+    # is a judgement, no source).
+    from analyse.limb import SunLocation
+    from analyse.pipeline import _same_sun
+
+    setting = SunLocation(True, 960.0, 698.0, 18.0, "")
+    glow = SunLocation(True, 930.0, 15.0, 282.0, "")
+    assert not _same_sun(glow, setting)
+    assert _same_sun(SunLocation(True, 400.0, 300.0, 20.0, ""), setting)  # re-aimed
+    assert _same_sun(SunLocation(True, 962.0, 700.0, 150.0, ""), setting)  # in place
+    assert _same_sun(glow, None) and _same_sun(glow, SunLocation(False, *[np.nan] * 3, "x"))

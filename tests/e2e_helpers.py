@@ -270,6 +270,17 @@ RECORDINGS: dict[str, dict[str, Any]] = {
     "lateral": scenario(site=_site(40.0, 12.0), atmosphere={"lapse_rate_K_per_km": 12.0},
                         camera={"channel_offset_px": {"r": [1.2, -0.9], "b": [-1.2, 0.9]}},
                         output={"seed": 6}),
+    # HD video at 30 fps (the frame rate of most cameras' video): 1920 x 1080 at 5 arcsec/px,
+    # the last 6 s before green last light and 1.5 s after, H.264, slight shake and lens
+    # colour offsets. After sunset H.264's smoothed noise leaves the sky's glow above the
+    # Sun standing out; it must not be taken for the Sun.
+    "hd30": scenario(camera={"width_px": 1920, "height_px": 1080,
+                             "plate_scale_arcsec_per_px": 5.0, "horizon_row_px": 700.0,
+                             "shake_px": 0.3,
+                             "channel_offset_px": {"r": [0.3, 0.0], "b": [-0.3, 0.1]}},
+                     time={"last_seconds": 6.0, "after_seconds": 1.5, "burst": None,
+                           "fps": 30.0},
+                     output={"format": "h264", "seed": 4}),
     # The Sun still well up when the recording stops: no last light, no green segment
     # (frames over the first 16 s of a window that ends at green last light 44 s later;
     # at 8 arcsec/px the horizon beside the disc stays in view).

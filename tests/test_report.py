@@ -336,7 +336,7 @@ def test_lens_error_named_with_its_remedy():
     # came from the horizon; a calibration's own offsets carry no such hint.
     from types import SimpleNamespace
 
-    from analyse.report import _lens_error
+    from analyse.report._words import _lens_error
 
     def ob(err_px, source):
         return SimpleNamespace(colour_offset_dy_err_px={"r": err_px},
@@ -353,7 +353,7 @@ def test_apexes_after_a_channels_last_light_are_not_drawn():
     # detection level; an apex found there is noise and figure (a) leaves it out.
     from types import SimpleNamespace
 
-    from analyse.report import _before_last
+    from analyse.report._panels import _before_last
 
     tab = SimpleNamespace(t_unix_s=np.array([0.0, 1.0, 2.0, 3.0]))
     ob = SimpleNamespace(last={"g": SimpleNamespace(t_unix_s=1.9, err_s=0.2),

@@ -19,6 +19,7 @@ Disc geometry
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -50,6 +51,8 @@ __all__ = [
     "green_above_red",
     "disc_geometry",
     "exposure_changes",
+    "relative_exposure",
+    "per_exposure",
     "disc_flux_scale",
     "sequence_observables",
 ]
@@ -196,6 +199,30 @@ def disc_geometry(apex_height_px, width_px) -> DiscGeometry:
                             f"chords span too little of the disc's height (flattening "
                             f"{f:.2f} +- {f_err:.2f})")
     return DiscGeometry(float(rx), rx_err, float(f), f_err, h.size, "")
+
+
+def relative_exposure(exposure_s, iso=None) -> np.ndarray | None:
+    """Each frame's exposure (time x ISO, from EXIF) over the first frame's, or None when
+    a frame lacks it or it does not change (by more than 1 %).
+
+    Linear light recorded is proportional to exposure time and gain, so a flux divided
+    by it is comparable across an automatic exposure's changes (below the clip level).
+    """
+    t = np.array([np.nan if v is None else float(v) for v in exposure_s], dtype=float)
+    g = np.array([1.0 if v is None else float(v) for v in (iso or [None] * t.size)], float)
+    e = t * g
+    if e.size < 2 or not np.all(np.isfinite(e) & (e > 0)):
+        return None
+    rel = e / e[0]
+    return rel if float(np.max(rel) / np.min(rel)) > 1.01 else None
+
+
+def per_exposure(table: FrameTable, rel: np.ndarray) -> FrameTable:
+    """``table`` with fluxes, their errors and sky levels divided by each frame's
+    relative exposure (:func:`relative_exposure`)."""
+    scale = {k: {c: v / rel for c, v in getattr(table, k).items()}
+             for k in ("flux", "flux_err", "sky_level")}
+    return dataclasses.replace(table, **scale)
 
 
 def exposure_changes(sky_level: np.ndarray, *, jump: float = 0.15, run: int = 3) -> np.ndarray:

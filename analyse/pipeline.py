@@ -49,6 +49,8 @@ from analyse.measure import (
     Observables,
     disc_flux_scale,
     disc_geometry,
+    per_exposure,
+    relative_exposure,
     sequence_observables,
 )
 from analyse.observation import Observation
@@ -508,6 +510,13 @@ def _observables(fs, obs, table: FrameTable, colour_dy, strip, *,
                      "not used")
     if not any(np.any(table.visible[c]) for c in CHANNELS):
         raise InputError("no sun found above the horizon in any frame", fs.folder)
+    rel = relative_exposure([i.exposure_s for i in fs.infos], [i.iso for i in fs.infos])
+    if rel is not None and rel.size == len(table):
+        table = per_exposure(table, rel)
+        span = float(rel.max() / rel.min())
+        notes.append(f"the exposure (EXIF time x ISO) changes {span:.2f}-fold over the "
+                     "recording: fluxes and sky levels are per unit exposure, relative to "
+                     f"{table.sources[0]}'s")
     track = sun_track(table.t_unix_s, obs.site.latitude_deg, obs.site.longitude_deg,
                       obs.site.eye_height_m)
     sd = float(np.median(track.semidiameter_arcsec))

@@ -281,6 +281,10 @@ RECORDINGS: dict[str, dict[str, Any]] = {
                      time={"last_seconds": 6.0, "after_seconds": 1.5, "burst": None,
                            "fps": 30.0},
                      output={"format": "h264", "seed": 4}),
+    # Automatic exposure (the gain follows the dimming Sun with a 0.5 s lag, up 12-fold),
+    # written to each JPEG's EXIF exposure time.
+    "auto": scenario(camera={"exposure": "auto"},
+                     output={"format": "jpeg", "jpeg_quality": 95, "seed": 9}),
     # The Sun still well up when the recording stops: no last light, no green segment
     # (frames over the first 16 s of a window that ends at green last light 44 s later;
     # at 8 arcsec/px the horizon beside the disc stays in view).

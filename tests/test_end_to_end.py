@@ -213,6 +213,28 @@ def test_hd_video_at_30_fps_finds_last_light(report, recording):
     assert rep.result["recording"]["colour_matrix"] == "BT.709"
 
 
+def test_automatic_exposure_is_undone_with_the_exif_exposure(report, recording):
+    """An automatic exposure (``RECORDINGS["auto"]``: the gain rises 12-fold as the Sun
+    sets) recorded in EXIF: fluxes are divided by each frame's exposure, so last light
+    (within one frame interval, issue 4) and the lapse rate (2-sigma interval) come out as
+    with a locked exposure. Reached: red +0.00 s, green +0.02 s, 6.5 K/km in 5.65..7.4
+    (truth 6.5). Without the division: red +0.49 s, green by the noise limit +0.94 s, no
+    lapse rate.
+    """
+    rec, rep = recording("auto"), report("auto")
+    ob, truth = rep.result["observables"], rec.truth
+    assert any("per unit exposure" in n for n in rep.result["notes"])
+    t = rec.true_unix_s + truth["clock_error_s"]
+    for c, key in (("r", "last_red_utc"), ("g", "last_green_utc")):
+        assert ob["last_light_method"][c].startswith("fading fit to 0.0001 of the disc")
+        true_t = truth["last_light_unix_s"][c] + truth["clock_error_s"]
+        got = parse_utc(ob[key], where=key)
+        assert abs(got - true_t) <= _interval_at(t, true_t), f"{c}: {got - true_t:+.3f} s"
+    inf = rep.result["inference"]
+    lo, hi = inf["interval_2sigma_K_per_km"]
+    assert inf["status"] == "constrained" and lo <= truth["lapse_rate_K_per_km"] <= hi
+
+
 @pytest.mark.parametrize("name", VARIANTS)
 def test_green_above_red_within_its_error(report, recording, name):
     """The green-above-red offset against the scenario's truth (the forward model's own

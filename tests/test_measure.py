@@ -115,3 +115,20 @@ def test_colour_offset_error_is_common_to_all_frames():
     _, err_nan, _ = green_above_red(tab, t_last_red=50.0, plate_scale_arcsec_per_px=4.0,
                                     colour_offset_dy_px=dy, colour_offset_dy_err_px={"r": np.nan})
     assert err_nan == err
+
+
+def test_relative_exposure_and_fluxes_per_unit_exposure():
+    # Recorded linear light is proportional to exposure time x gain (ISO) below the clip
+    # level (the definition of a linear sensor); a 1 % change is treated as none.
+    from analyse.measure import per_exposure, relative_exposure
+
+    rel = relative_exposure([1 / 1000, 1 / 500, 1 / 250], [100, 100, 200])
+    assert rel.tolist() == pytest.approx([1.0, 2.0, 8.0])
+    assert relative_exposure([1 / 1000, 1 / 1000], None) is None
+    assert relative_exposure([1 / 1000, 1.005 / 1000], None) is None
+    assert relative_exposure([1 / 1000, None], None) is None
+    table = _offset_table(n=3)
+    scaled = per_exposure(table, rel)
+    assert scaled.flux["g"].tolist() == pytest.approx((table.flux["g"] / rel).tolist())
+    assert scaled.sky_level["r"].tolist() == pytest.approx((table.sky_level["r"] / rel).tolist())
+    assert scaled.apex_height_px["g"] is table.apex_height_px["g"]

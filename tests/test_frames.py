@@ -672,3 +672,31 @@ def test_video_linearised_with_its_transfer(tmp_path, trc, name, decode):
     assert any("transfer function" in n for n in fs.notes) == (trc != 13)
     _, img = next(iter(iter_frames(fs)))
     assert float(img[180, 320, 1]) == pytest.approx(float(decode(128 / 255)), rel=0.01)
+
+
+def test_hlg_bt2020_ten_bit_video(tmp_path):
+    # Phones' HDR video: 10-bit, BT.2020 matrix (H.273 code 9), HLG transfer (code 18).
+    # A colour stored as R'G'B' codes (40000, 30000, 20000) / 65535 decodes to the HLG
+    # OETF's inverse of those codes (ITU-R BT.2100-2 table 5), within 1 % (10-bit and
+    # 4:2:0 rounding).
+    from analyse._transfer import hlg_to_linear
+
+    container = av.open(str(tmp_path / "clip.mp4"), "w")
+    stream = container.add_stream("libx264", rate=30)
+    stream.width, stream.height, stream.pix_fmt = 640, 360, "yuv420p10le"
+    ctx = stream.codec_context
+    ctx.colorspace = ctx.color_primaries = 9
+    ctx.color_trc = 18
+    codes = np.array([40000, 30000, 20000])
+    rgb = np.zeros((360, 640, 3), np.uint16)
+    rgb[:] = codes
+    frame = av.VideoFrame.from_ndarray(rgb, format="rgb48le").reformat(
+        format="yuv420p10le", src_colorspace="BT2020", dst_colorspace="BT2020")
+    frame.pts = 0
+    for packet in list(stream.encode(frame)) + list(stream.encode()):
+        container.mux(packet)
+    container.close()
+    fs = open_frames(tmp_path, video_start_utc=T0)
+    assert (fs.colour_matrix, fs.transfer, fs.bit_depth) == ("BT.2020", "HLG", 16)
+    _, img = next(iter(iter_frames(fs)))
+    np.testing.assert_allclose(img[180, 320], hlg_to_linear(codes / 65535), rtol=0.01)

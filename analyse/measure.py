@@ -20,6 +20,7 @@ Disc geometry
 from __future__ import annotations
 
 import dataclasses
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -53,6 +54,7 @@ __all__ = [
     "exposure_changes",
     "relative_exposure",
     "per_exposure",
+    "median_standard_error",
     "disc_flux_scale",
     "sequence_observables",
 ]
@@ -107,6 +109,21 @@ class FrameTable:
         return int(self.t_unix_s.size)
 
 
+def median_standard_error(values, *, std_if_no_spread: bool = False) -> float:
+    """Standard error of the median of ``values``: 1.2533 x the Gaussian-equivalent
+    scatter (1.4826 x the median absolute deviation) / sqrt(n) (the median's asymptotic
+    efficiency for normal data, 2/pi). With ``std_if_no_spread`` a zero deviation (more
+    than half the values equal) falls back to the standard deviation. NaN for fewer than
+    two values."""
+    v = np.asarray(values, dtype=float)
+    if v.size < 2:
+        return float("nan")
+    spread = 1.4826 * float(np.median(np.abs(v - np.median(v))))
+    if spread == 0.0 and std_if_no_spread:
+        spread = float(np.std(v))
+    return 1.2533 * spread / math.sqrt(v.size)
+
+
 def green_above_red(table: FrameTable, *, t_last_red: float, plate_scale_arcsec_per_px: float,
                     colour_offset_dy_px: dict[str, float] | None = None,
                     colour_offset_dy_err_px: dict[str, float] | None = None,
@@ -142,10 +159,7 @@ def green_above_red(table: FrameTable, *, t_last_red: float, plate_scale_arcsec_
         e = table.apex_height_err_px
         err = float(np.hypot(e["g"][sel][0], e["r"][sel][0]) * plate_scale_arcsec_per_px)
         return med, float(np.hypot(err, common)), 1
-    spread = 1.4826 * float(np.median(np.abs(d - med)))
-    if spread == 0.0:
-        spread = float(np.std(d))
-    sem = 1.2533 * spread / np.sqrt(d.size)  # standard error of a median
+    sem = median_standard_error(d, std_if_no_spread=True)
     return med, float(np.hypot(sem, common)), int(d.size)
 
 
@@ -214,6 +228,7 @@ def relative_exposure(exposure_s, iso=None) -> np.ndarray | None:
     if e.size < 2 or not np.all(np.isfinite(e) & (e > 0)):
         return None
     rel = e / e[0]
+    # Changes under 1 % are EXIF rounding, not an exposure change (a judgement, no source).
     return rel if float(np.max(rel) / np.min(rel)) > 1.01 else None
 
 

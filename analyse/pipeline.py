@@ -49,6 +49,7 @@ from analyse.measure import (
     Observables,
     disc_flux_scale,
     disc_geometry,
+    median_standard_error,
     per_exposure,
     relative_exposure,
     sequence_observables,
@@ -462,10 +463,7 @@ def _colour_offsets(calib: dict | None, colour_dy: dict[str, list[float]], sun_x
         sys = {c: float(np.hypot(sys[c], chroma[c])) for c in sys}
     err = {}
     for c, v in colour_dy.items():
-        v = np.asarray(v, float)
-        stat = (1.2533 * 1.4826 * float(np.median(np.abs(v - np.median(v)))) / np.sqrt(v.size)
-                if v.size >= 2 else float("nan"))  # standard error of a median
-        err[c] = float(np.hypot(stat, np.nan_to_num(sys[c], nan=0.0)))
+        err[c] = float(np.hypot(median_standard_error(v), np.nan_to_num(sys[c], nan=0.0)))
     return dy | {"g": 0.0}, source, err | {"g": 0.0}
 
 

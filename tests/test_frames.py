@@ -604,23 +604,29 @@ def test_video_frame_corrupt_mid_stream(tmp_path):
 
 
 def _matrix_clip(folder: Path, rows: int, encode_space: str, tag: int | None,
-                 colour: tuple[int, int, int] = (200, 60, 20), trc: int | None = None) -> Path:
-    """One-frame H.264 clip of one colour (a deep red), converted to YUV with
-    ``encode_space``, its header's matrix_coefficients set to ``tag`` and its
+                 colour: tuple[int, int, int] = (200, 60, 20), trc: int | None = None,
+                 ten_bit: bool = False) -> Path:
+    """One-frame H.264 clip of one colour (a deep red; 8-bit codes, or 16-bit with
+    ``ten_bit``, stored as 10-bit), converted to YUV with ``encode_space``, its header's
+    matrix_coefficients (and colour primaries) set to ``tag`` and its
     transfer_characteristics to ``trc`` (None: untagged)."""
     folder.mkdir()
+    pix_fmt, rgb_fmt, dtype = (("yuv420p10le", "rgb48le", np.uint16) if ten_bit
+                               else ("yuv420p", "rgb24", np.uint8))
     container = av.open(str(folder / "clip.mp4"), "w")
     stream = container.add_stream("libx264", rate=30)
     stream.height, stream.width = rows, 16 * rows // 9
-    stream.pix_fmt = "yuv420p"
+    stream.pix_fmt = pix_fmt
     if tag is not None:
         stream.codec_context.colorspace = tag
+        if ten_bit:
+            stream.codec_context.color_primaries = tag
     if trc is not None:
         stream.codec_context.color_trc = trc
-    rgb = np.zeros((rows, 16 * rows // 9, 3), np.uint8)
+    rgb = np.zeros((rows, 16 * rows // 9, 3), dtype)
     rgb[:] = colour
-    frame = av.VideoFrame.from_ndarray(rgb, format="rgb24").reformat(
-        format="yuv420p", src_colorspace=encode_space, dst_colorspace=encode_space)
+    frame = av.VideoFrame.from_ndarray(rgb, format=rgb_fmt).reformat(
+        format=pix_fmt, src_colorspace=encode_space, dst_colorspace=encode_space)
     frame.pts = 0
     for packet in list(stream.encode(frame)) + list(stream.encode()):
         container.mux(packet)
@@ -681,22 +687,9 @@ def test_hlg_bt2020_ten_bit_video(tmp_path):
     # 4:2:0 rounding).
     from analyse._transfer import hlg_to_linear
 
-    container = av.open(str(tmp_path / "clip.mp4"), "w")
-    stream = container.add_stream("libx264", rate=30)
-    stream.width, stream.height, stream.pix_fmt = 640, 360, "yuv420p10le"
-    ctx = stream.codec_context
-    ctx.colorspace = ctx.color_primaries = 9
-    ctx.color_trc = 18
     codes = np.array([40000, 30000, 20000])
-    rgb = np.zeros((360, 640, 3), np.uint16)
-    rgb[:] = codes
-    frame = av.VideoFrame.from_ndarray(rgb, format="rgb48le").reformat(
-        format="yuv420p10le", src_colorspace="BT2020", dst_colorspace="BT2020")
-    frame.pts = 0
-    for packet in list(stream.encode(frame)) + list(stream.encode()):
-        container.mux(packet)
-    container.close()
-    fs = open_frames(tmp_path, video_start_utc=T0)
+    folder = _matrix_clip(tmp_path / "v", 360, "BT2020", 9, tuple(codes), 18, ten_bit=True)
+    fs = open_frames(folder, video_start_utc=T0)
     assert (fs.colour_matrix, fs.transfer, fs.bit_depth) == ("BT.2020", "HLG", 16)
     _, img = next(iter(iter_frames(fs)))
     np.testing.assert_allclose(img[180, 320], hlg_to_linear(codes / 65535), rtol=0.01)

@@ -65,14 +65,19 @@ def _window(t_rel: np.ndarray, window: tuple[float, float]) -> np.ndarray:
     return (t_rel >= window[0]) & (t_rel <= window[1])
 
 
-def _before_last(tab, ob, c: str) -> np.ndarray:
-    """Frames up to a channel's measured last light (and its error); all if unknown.
-    After it the channel's light is below the detection level, and an apex found there
-    is the noise's."""
+def _last_drawn(ob, c: str) -> float:
+    """The latest time [UTC s] whose apex of channel ``c`` is drawn: its measured last
+    light plus that time's error (inf if unknown). After it the channel's light is below
+    the detection level, and an apex found there is the noise's."""
     ll = ob.last[c]
     if not _ok(ll.t_unix_s):
-        return np.ones(tab.t_unix_s.shape, bool)
-    return tab.t_unix_s <= ll.t_unix_s + (ll.err_s if _ok(ll.err_s) else 0.0)
+        return float("inf")
+    return ll.t_unix_s + (ll.err_s if _ok(ll.err_s) else 0.0)
+
+
+def _before_last(tab, ob, c: str) -> np.ndarray:
+    """Frames up to a channel's :func:`_last_drawn` time; all if unknown."""
+    return tab.t_unix_s <= _last_drawn(ob, c)
 
 
 def _fig_heights(m, curves, ref: _Reference) -> dict:
@@ -148,9 +153,8 @@ def _fig_strip(m, ref: _Reference) -> dict:
                        "(the limb apex was never measured close enough to the horizon).")
     pick = np.unique(np.round(np.linspace(0, len(strip) - 1, min(STRIP_PANELS, len(strip)))))
     shown = [strip[int(i)] for i in pick]
-    last = {c: ll.t_unix_s + (ll.err_s if _ok(ll.err_s) else 0.0)
-            for c, ll in m.observables.last.items() if _ok(ll.t_unix_s)}
-    ticks = [{c: h for c, h in s.apex_height_px.items() if s.t_unix_s <= last.get(c, np.inf)}
+    ticks = [{c: h for c, h in s.apex_height_px.items()
+              if c not in m.observables.last or s.t_unix_s <= _last_drawn(m.observables, c)}
              for s in shown]
     png = fg.strip_png([np.asarray(s.crop, dtype=float) for s in shown],
                        [f"{s.t_unix_s - ref.t_unix_s:+.2f} s" for s in shown],
